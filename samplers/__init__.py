@@ -1,0 +1,1 @@
+"""Reverse-time samplers written against the Space protocol only."""

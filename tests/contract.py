@@ -1,0 +1,112 @@
+"""The contract every continuous space passes (run by tests/test_contract.py).
+
+Each check compares two independent computations inside the space's own
+protocol (finite differences vs. the analytic score, the exact sampler vs.
+quadrature by uniform importance sampling, exp vs. log). The numerical values
+of each kernel are checked against external references in the space's own
+test module.
+"""
+
+from __future__ import annotations
+
+import math
+
+import torch
+
+from heatwalk.spaces.base import Space
+
+
+def gen(seed: int = 0) -> torch.Generator:
+    return torch.Generator().manual_seed(seed)
+
+
+def check_validate_roundtrip(space: Space):
+    x = space.random_uniform(64, gen(1))
+    y = space.validate(x)
+    assert y.shape == (64, *space.ambient_shape)
+    # common practice: validated points sit on the manifold to a few ulps
+    torch.testing.assert_close(space.project(y), y, atol=1e-12, rtol=0)
+
+
+def check_exp_log_inverse(space: Space):
+    x = space.random_uniform(256, gen(2))
+    v = 0.5 * space.random_tangent(x, gen(3))  # short vectors: well inside the injectivity radius
+    y = space.exp(x, v)
+    torch.testing.assert_close(space.project(y), y, atol=1e-12, rtol=0)
+    torch.testing.assert_close(space.log(x, y), v, atol=1e-9, rtol=0)
+    torch.testing.assert_close(space.dist(x, y), space.norm(x, v), atol=1e-9, rtol=0)
+
+
+def check_tangent_basis_orthonormal(space: Space):
+    x = space.random_uniform(16, gen(4))
+    b = space.tangent_basis(x)  # (16, dim, *ambient)
+    assert b.shape == (16, space.dim, *space.ambient_shape)
+    for i in range(space.dim):
+        ei = b[:, i]
+        torch.testing.assert_close(space.to_tangent(x, ei), ei, atol=1e-12, rtol=0)
+        for j in range(space.dim):
+            g = space.inner(x, ei, b[:, j])
+            torch.testing.assert_close(g, torch.full_like(g, float(i == j)), atol=1e-12, rtol=0)
+
+
+def check_random_tangent_covariance(space: Space):
+    # A standard Gaussian in the metric has E<z, e_i><z, e_j> = δ_ij; 20k draws, 6 standard errors.
+    x = space.random_uniform(1, gen(5)).expand(20000, *space.ambient_shape).clone()
+    z = space.random_tangent(x, gen(6))
+    b = space.tangent_basis(x)
+    c = torch.stack([space.inner(x, z, b[:, i]) for i in range(space.dim)], dim=-1)
+    cov = c.T @ c / c.shape[0]
+    se = math.sqrt(2.0 / c.shape[0])
+    assert torch.allclose(cov, torch.eye(space.dim, dtype=cov.dtype), atol=6 * se)
+
+
+def check_score_is_gradient(space: Space, times=(1e-3, 0.05, 0.7, 3.0)):
+    x0 = space.random_uniform(32, gen(7))
+    for t in times:
+        xt = space.sample_forward(x0, t, gen(8))
+        s = space.score(xt, x0, t)
+        torch.testing.assert_close(space.to_tangent(xt, s), s, atol=1e-9 * (1 + s.abs().max()), rtol=0)
+        h = 1e-5 * math.sqrt(t)
+        b = space.tangent_basis(xt)
+        for i in range(space.dim):
+            e = b[:, i]
+            fd = (space.log_kernel(space.exp(xt, h * e), x0, t)
+                  - space.log_kernel(space.exp(xt, -h * e), x0, t)) / (2 * h)
+            an = space.inner(xt, s, e)
+            # central differences: error O(h^2 |f'''|) plus rounding eps|f|/h; relative 1e-5 of the scale 1/sqrt(t)
+            torch.testing.assert_close(fd, an, atol=1e-5 / math.sqrt(t), rtol=1e-5)
+
+
+def check_kernel_normalised_and_sampler_exact(space: Space, times=(0.05, 0.5, 2.0), n=200_000):
+    """∫ p_t(x|x0) dvol = 1 and E_sampler[g] = ∫ g p_t dvol, both by uniform importance sampling."""
+    x0 = space.random_uniform(1, gen(9))
+    u = space.random_uniform(n, gen(10))
+    for t in times:
+        w = torch.exp(space.log_kernel(u, x0.expand_as(u), t) + space.log_volume)  # p / uniform density
+        se_w = float(w.std()) / math.sqrt(n)
+        assert abs(float(w.mean()) - 1) < 6 * se_w + 1e-12, (t, float(w.mean()), se_w)
+        g_u = torch.cos(space.dist(u, x0.expand_as(u)))
+        quad = w * g_u
+        xs = space.sample_forward(x0.expand(n, *space.ambient_shape), t, gen(11))
+        g_s = torch.cos(space.dist(xs, x0.expand_as(xs)))
+        se = math.sqrt(float(quad.var()) / n + float(g_s.var()) / n)
+        assert abs(float(quad.mean()) - float(g_s.mean())) < 6 * se, (t, float(quad.mean()), float(g_s.mean()), se)
+
+
+def check_uniform_at_large_time(space: Space):
+    # at t_max the law is (close to) the uniform prior: log p_t = -log vol within 1e-3 nats
+    x0 = space.random_uniform(8, gen(12))
+    x = space.random_uniform(8, gen(13))
+    lk = space.log_kernel(x, x0, space.time_range[1])
+    torch.testing.assert_close(lk, torch.full_like(lk, -space.log_volume), atol=1e-3, rtol=0)
+
+
+ALL_CHECKS = [
+    check_validate_roundtrip,
+    check_exp_log_inverse,
+    check_tangent_basis_orthonormal,
+    check_random_tangent_covariance,
+    check_score_is_gradient,
+    check_kernel_normalised_and_sampler_exact,
+    check_uniform_at_large_time,
+]
