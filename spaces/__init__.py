@@ -9,10 +9,14 @@ from __future__ import annotations
 from heatwalk.errors import InputError
 from heatwalk.spaces.base import Space
 from heatwalk.spaces.torus import Torus
+from heatwalk.spaces.sphere import Sphere
+from heatwalk.spaces.so3 import SO3
 
 SPACE_KINDS: dict[str, type] = {"torus": Torus}
+SPACE_KINDS["sphere"] = Sphere
+SPACE_KINDS["so3"] = SO3
 
-__all__ = ["Space", "Torus", "SPACE_KINDS", "from_config", "register"]
+__all__ = ["Space", "Torus", "Sphere", "SPACE_KINDS", "from_config", "register"]
 
 
 def register(kind: str, cls: type) -> None:

@@ -1,0 +1,57 @@
+"""Denoiser networks. Each is rebuilt from a JSON config, so checkpoints hold only tensors.
+
+``NETWORKS`` maps a name to a class with ``__init__(**config)`` and a
+``config()`` method returning the same keyword arguments.
+"""
+
+from __future__ import annotations
+
+import torch
+from torch import nn
+
+from heatwalk.errors import InputError
+
+
+class MLPDenoiser(nn.Module):
+    """Multi-layer perceptron on [features(x), features(t)] -> output vector.
+
+    Parameters
+    ----------
+    in_dim : length of the point features (``space.embed_dim``)
+    time_dim : length of the time features (``TimeSchedule.n_features``)
+    out_dim : length of the output (e.g. the flattened ambient shape)
+    hidden, depth : width and number of hidden layers (SiLU activations)
+    """
+
+    def __init__(self, in_dim: int, time_dim: int, out_dim: int, hidden: int = 256, depth: int = 3):
+        super().__init__()
+        if depth < 1 or hidden < 1:
+            raise InputError(f"network depth and hidden must be >= 1, got depth={depth}, hidden={hidden}")
+        self._config = dict(in_dim=in_dim, time_dim=time_dim, out_dim=out_dim, hidden=hidden, depth=depth)
+        layers: list[nn.Module] = [nn.Linear(in_dim + time_dim, hidden), nn.SiLU()]
+        for _ in range(depth - 1):
+            layers += [nn.Linear(hidden, hidden), nn.SiLU()]
+        layers.append(nn.Linear(hidden, out_dim))
+        self.net = nn.Sequential(*layers)
+
+    def config(self) -> dict:
+        return dict(self._config)
+
+    def forward(self, features: torch.Tensor, time_features: torch.Tensor) -> torch.Tensor:
+        return self.net(torch.cat([features, time_features], dim=-1))
+
+
+NETWORKS: dict[str, type] = {"mlp": MLPDenoiser}
+
+
+def build_network(name: str, config: dict) -> nn.Module:
+    if name not in NETWORKS:
+        raise InputError(f"unknown network {name!r}; known: {sorted(NETWORKS)}", field="network")
+    return NETWORKS[name](**config)
+
+
+def network_name(net: nn.Module) -> str:
+    for name, cls in NETWORKS.items():
+        if type(net) is cls:
+            return name
+    raise InputError(f"network class {type(net).__name__} is not registered in heatwalk.networks.NETWORKS")

@@ -1,0 +1,56 @@
+"""Diffusion time: the training distribution of t, the sampling grid, and time features.
+
+heatwalk parametrises noise by the Brownian time t (generator (1/2)Δ, so on
+R^d the noise variance is t). Training draws t log-uniformly on
+[t_min, t_max], i.e. the noise scale σ = sqrt(t) is geometric — common
+practice for variance-exploding diffusions — and weights the squared score
+error by t (the "σ² weighting", which makes every noise level contribute on
+the same scale). Sampling runs over a geometric grid from t_max down to t_min.
+"""
+
+from __future__ import annotations
+
+import math
+
+import torch
+
+from heatwalk.errors import InputError
+
+
+class TimeSchedule:
+    """Log-uniform training times and geometric sampling grids on [t_min, t_max]."""
+
+    def __init__(self, t_min: float, t_max: float, n_frequencies: int = 8):
+        if not (0 < t_min < t_max and math.isfinite(t_max)):
+            raise InputError(f"time range must satisfy 0 < t_min < t_max < inf, got ({t_min}, {t_max})",
+                             field="time_range")
+        self.t_min = float(t_min)
+        self.t_max = float(t_max)
+        self.n_frequencies = int(n_frequencies)
+        self._log_min = math.log(self.t_min)
+        self._log_span = math.log(self.t_max) - self._log_min
+
+    def config(self) -> dict:
+        return {"t_min": self.t_min, "t_max": self.t_max, "n_frequencies": self.n_frequencies}
+
+    def sample(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
+        """n training times, log-uniform on [t_min, t_max] (float64)."""
+        u = torch.rand(n, dtype=torch.float64, generator=generator)
+        return torch.exp(self._log_min + self._log_span * u)
+
+    def grid(self, steps: int) -> torch.Tensor:
+        """steps+1 times from t_max down to t_min, geometric (float64)."""
+        if steps < 1:
+            raise InputError(f"steps must be >= 1, got {steps}", field="steps")
+        return torch.logspace(math.log10(self.t_max), math.log10(self.t_min), steps + 1, dtype=torch.float64)
+
+    @property
+    def n_features(self) -> int:
+        return 1 + 2 * self.n_frequencies
+
+    def features(self, t: torch.Tensor) -> torch.Tensor:
+        """Smooth features of log t for a network: u in [0, 1] and sin/cos(π k u), k = 1..n_frequencies."""
+        u = (torch.log(t) - self._log_min) / self._log_span
+        k = torch.arange(1, self.n_frequencies + 1, dtype=u.dtype, device=u.device)
+        ang = math.pi * u.unsqueeze(-1) * k
+        return torch.cat([u.unsqueeze(-1), torch.sin(ang), torch.cos(ang)], dim=-1)

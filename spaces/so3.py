@@ -1,0 +1,309 @@
+"""The rotation group SO(3), points stored as 3x3 rotation matrices."""
+
+from __future__ import annotations
+
+import math
+
+import torch
+
+from heatwalk.errors import InputError
+from heatwalk.kernels.igso3 import LOG_VOLUME, igso3_log_prob_and_dlog, igso3_sample_angle
+from heatwalk.spaces.base import DTYPE, Space, as_points, broadcast_time, first_bad_row
+
+#: validate: rows with max |x^T x - I| above this are rejected, below it projected onto SO(3)
+ORTHOGONALITY_TOLERANCE = 1e-6
+#: from_rows: quaternions with | |q| - 1 | above this are rejected, below it normalised
+UNIT_TOLERANCE = 1e-6
+
+FORMATS = ("matrix", "quaternion", "rotvec")
+ORDERS = ("wxyz", "xyzw")
+_COLUMNS = {"matrix": 9, "quaternion": 4, "rotvec": 3}
+
+# so(3) generators L_i = [e_i]_×
+_GENERATORS = torch.tensor(
+    [[[0, 0, 0], [0, 0, -1], [0, 1, 0]],
+     [[0, 0, 1], [0, 0, 0], [-1, 0, 0]],
+     [[0, -1, 0], [1, 0, 0], [0, 0, 0]]], dtype=DTYPE)
+
+
+def hat(w: torch.Tensor) -> torch.Tensor:
+    """(..., 3) -> (..., 3, 3) skew matrix [w]_× with [w]_× v = w × v."""
+    return torch.einsum("...i,ijk->...jk", w, _GENERATORS.to(w.device, w.dtype))
+
+
+def vee(a: torch.Tensor) -> torch.Tensor:
+    """Inverse of :func:`hat` on the skew part of ``a``: (..., 3, 3) -> (..., 3)."""
+    return 0.5 * torch.stack([a[..., 2, 1] - a[..., 1, 2], a[..., 0, 2] - a[..., 2, 0], a[..., 1, 0] - a[..., 0, 1]], -1)
+
+
+def exp_so3(w: torch.Tensor) -> torch.Tensor:
+    """Rotation matrix Exp([w]_×) (Rodrigues): I + sinc(θ)[w] + ((1-cos θ)/θ²)[w]², θ = |w|."""
+    theta = torch.linalg.vector_norm(w, dim=-1)[..., None, None]
+    k = hat(w)
+    a = torch.sinc(theta / math.pi)  # sin θ / θ
+    b = 0.5 * torch.sinc(theta / (2 * math.pi)).square()  # (1 - cos θ)/θ²
+    eye = torch.eye(3, dtype=w.dtype, device=w.device)
+    return eye + a * k + b * (k @ k)
+
+
+def matrix_to_quaternion(r: torch.Tensor) -> torch.Tensor:
+    """Unit quaternion (w, x, y, z) with w ≥ 0 of rotation matrices (..., 3, 3).
+
+    Shepperd's method: of the four algebraically equivalent formulas the one
+    with the largest pivot (1 + tr, 1 + 2 r_ii - tr) is used, so there is no
+    cancellation near angle 0 or π.
+    """
+    r00, r11, r22 = r[..., 0, 0], r[..., 1, 1], r[..., 2, 2]
+    tr = r00 + r11 + r22
+    d21, d02, d10 = r[..., 2, 1] - r[..., 1, 2], r[..., 0, 2] - r[..., 2, 0], r[..., 1, 0] - r[..., 0, 1]
+    s01, s02, s12 = r[..., 0, 1] + r[..., 1, 0], r[..., 0, 2] + r[..., 2, 0], r[..., 1, 2] + r[..., 2, 1]
+    cand = torch.stack([
+        torch.stack([1 + tr, d21, d02, d10], -1),
+        torch.stack([d21, 1 + 2 * r00 - tr, s01, s02], -1),
+        torch.stack([d02, s01, 1 + 2 * r11 - tr, s12], -1),
+        torch.stack([d10, s02, s12, 1 + 2 * r22 - tr], -1),
+    ], -2)  # (..., 4 candidates, 4)
+    pivots = torch.stack([1 + tr, 1 + 2 * r00 - tr, 1 + 2 * r11 - tr, 1 + 2 * r22 - tr], -1)
+    k = pivots.argmax(-1, keepdim=True)
+    q = cand.gather(-2, k.unsqueeze(-1).expand(*k.shape[:-1], 1, 4)).squeeze(-2)
+    q = q / torch.linalg.vector_norm(q, dim=-1, keepdim=True)
+    return torch.where(q[..., :1] < 0, -q, q)
+
+
+def quaternion_to_matrix(q: torch.Tensor) -> torch.Tensor:
+    """Rotation matrices of unit quaternions (w, x, y, z): (..., 4) -> (..., 3, 3)."""
+    w, x, y, z = q.unbind(-1)
+    return torch.stack([
+        torch.stack([1 - 2 * (y * y + z * z), 2 * (x * y - z * w), 2 * (x * z + y * w)], -1),
+        torch.stack([2 * (x * y + z * w), 1 - 2 * (x * x + z * z), 2 * (y * z - x * w)], -1),
+        torch.stack([2 * (x * z - y * w), 2 * (y * z + x * w), 1 - 2 * (x * x + y * y)], -1),
+    ], -2)
+
+
+def log_so3(r: torch.Tensor) -> torch.Tensor:
+    """Rotation vector ω (|ω| = angle in [0, π]) with Exp([ω]_×) = r: (..., 3, 3) -> (..., 3).
+
+    Computed from the quaternion: ω = 2 atan2(|v|, w) v/|v|, with the ratio
+    2 atan2(s, w)/s replaced by its Taylor series 2/w (1 - s²/(3w²)) for
+    s < 1e-6 (truncation error O(s⁴) < 1e-24). At angle π exactly either of
+    the two opposite rotation vectors is returned.
+    """
+    q = matrix_to_quaternion(r)
+    w, v = q[..., 0], q[..., 1:]
+    s = torch.linalg.vector_norm(v, dim=-1)
+    small = s < 1e-6
+    s_safe = torch.where(small, torch.ones_like(s), s)
+    w_safe = torch.where(small, w, torch.ones_like(w))  # w ≈ 1 on the small branch
+    ratio = torch.where(small, 2 / w_safe * (1 - s * s / (3 * w_safe * w_safe)), 2 * torch.atan2(s, w) / s_safe)
+    return ratio.unsqueeze(-1) * v
+
+
+def rotation_angle(r: torch.Tensor) -> torch.Tensor:
+    """Rotation angle in [0, π] of rotation matrices (..., 3, 3), robust near 0 and π."""
+    q = matrix_to_quaternion(r)
+    return 2 * torch.atan2(torch.linalg.vector_norm(q[..., 1:], dim=-1), q[..., 0])
+
+
+class SO3(Space):
+    """Rotations of R^3 as 3x3 matrices with det +1; shape (..., 3, 3).
+
+    Metric: bi-invariant, <x[a]_×, x[b]_×> = a·b = (1/2) tr(u^T v) on tangent
+    vectors u = x[a]_×, v = x[b]_× (tangent vectors are stored as ambient 3x3
+    matrices), so a rotation by angle w is a geodesic of length w. The
+    Riemannian volume has total mass 8π² (``log_volume``) and the rotations
+    with angle in [w, w + dw] from a point have volume 8π(1 - cos w) dw.
+    Geodesic distance: the rotation angle of x^T y, in [0, π].
+
+    Forward process: Brownian motion with generator (1/2)Δ. Its kernel is
+    IGSO(3), a function of the angle of x_0^T x_t only
+    (:mod:`heatwalk.kernels.igso3`); ``log_kernel`` is its log-density w.r.t.
+    the Riemannian volume, in nats. The prior is the uniform (Haar) law.
+    """
+
+    dim = 3
+    ambient_shape = (3, 3)
+
+    def config(self) -> dict:
+        return {"kind": "so3"}
+
+    # --- file rows -------------------------------------------------------------------------
+    @staticmethod
+    def _check_options(format, order, degrees) -> None:
+        if format not in FORMATS:
+            raise InputError(f"unknown rotation format {format!r}; expected one of {list(FORMATS)}", field="format")
+        if format == "quaternion":
+            if order is None:
+                raise InputError("quaternion component order must be stated: wxyz or xyzw", field="order")
+            if order not in ORDERS:
+                raise InputError(f"quaternion component order must be wxyz or xyzw, got {order!r}", field="order")
+        elif order is not None:
+            raise InputError(f"order applies to quaternions only, got order={order!r} with format {format!r}",
+                             field="order")
+        if degrees and format != "rotvec":
+            raise InputError(f"degrees applies to format 'rotvec' only, got format {format!r}", field="degrees")
+
+    def n_columns_for(self, *, format: str = "matrix", order: str | None = None, degrees: bool = False) -> int:
+        """Columns one rotation takes in a file: 9 (matrix), 4 (quaternion) or 3 (rotvec)."""
+        self._check_options(format, order, degrees)
+        return _COLUMNS[format]
+
+    def from_rows(self, rows, *, format: str = "matrix", order: str | None = None, degrees: bool = False) -> torch.Tensor:
+        """Read rotations from an (n, columns) float array.
+
+        Parameters
+        ----------
+        format : "matrix" (9 columns, the matrix row-major), "quaternion"
+            (4 columns, unit quaternion; rows with | |q| - 1 | ≤ 1e-6 are
+            normalised, others and zero rows rejected) or "rotvec" (3
+            columns, rotation vector axis·angle, any length).
+        order : "wxyz" or "xyzw", required for quaternions (scalar first or last).
+        degrees : rotation vectors in degrees instead of radians.
+
+        Matrices go through :meth:`validate`. Raises :class:`InputError` naming the row.
+        """
+        ncol = self.n_columns_for(format=format, order=order, degrees=degrees)
+        rows = torch.as_tensor(rows, dtype=DTYPE)
+        if rows.dim() != 2 or rows.shape[1] != ncol:
+            raise InputError(f"format {format!r} takes {ncol} columns per row, got an array of shape "
+                             f"{tuple(rows.shape)}", field="format")
+        rows = as_points(rows, (ncol,), f"{format} rows")
+        if format == "matrix":
+            return self.validate(rows.reshape(-1, 3, 3))
+        if format == "rotvec":
+            return exp_so3(torch.deg2rad(rows) if degrees else rows)
+        q = rows if order == "wxyz" else rows[:, [3, 0, 1, 2]]
+        norm = torch.linalg.vector_norm(q, dim=-1)
+        i = first_bad_row(norm == 0)
+        if i is not None:
+            raise InputError(f"row {i}: zero quaternion (norm 0) is not a rotation", row=i)
+        i = first_bad_row((norm - 1).abs() > UNIT_TOLERANCE)
+        if i is not None:
+            raise InputError(f"row {i}: quaternion is not a unit quaternion: norm {float(norm[i]):.9g} differs from 1 "
+                             f"by more than {UNIT_TOLERANCE:g}", row=i)
+        return quaternion_to_matrix(q / norm.unsqueeze(-1))
+
+    def to_rows(self, x: torch.Tensor, *, format: str = "matrix", order: str | None = None,
+                degrees: bool = False) -> torch.Tensor:
+        """Inverse of :meth:`from_rows`. Quaternions are written with w ≥ 0; rotation vectors have length ≤ π (180°)."""
+        self._check_options(format, order, degrees)
+        if format == "matrix":
+            return x.reshape(x.shape[0], 9)
+        if format == "rotvec":
+            v = log_so3(x)
+            return torch.rad2deg(v) if degrees else v
+        q = matrix_to_quaternion(x)
+        return q if order == "wxyz" else q[:, [1, 2, 3, 0]]
+
+    def column_names(self, *, format: str = "matrix", order: str | None = None, degrees: bool = False) -> list[str]:
+        self._check_options(format, order, degrees)
+        if format == "matrix":
+            return [f"r{i}{j}" for i in range(1, 4) for j in range(1, 4)]
+        if format == "rotvec":
+            unit = "deg" if degrees else "rad"
+            return [f"rotvec_{c}_{unit}" for c in "xyz"]
+        return [f"q{c}" for c in order]
+
+    # --- geometry --------------------------------------------------------------------------
+    def validate(self, x) -> torch.Tensor:
+        """Check rotation matrices; return them as float64 (n, 3, 3) on SO(3).
+
+        Rows must be finite 3x3 matrices with max |x^T x - I| ≤ 1e-6 and
+        det > 0. Rows within that tolerance are projected onto SO(3) by SVD
+        (nearest rotation in the Frobenius norm), so the result is orthogonal to
+        rounding. Raises :class:`InputError` naming the first bad row.
+        """
+        x = as_points(x, self.ambient_shape, "rotation matrices")
+        eye = torch.eye(3, dtype=DTYPE, device=x.device)
+        err = (x.transpose(-1, -2) @ x - eye).abs().flatten(1).max(-1).values
+        i = first_bad_row(err > ORTHOGONALITY_TOLERANCE)
+        if i is not None:
+            raise InputError(f"row {i}: not a rotation matrix: max |x^T x - I| = {float(err[i]):.3g} exceeds the "
+                             f"tolerance {ORTHOGONALITY_TOLERANCE:g}", row=i)
+        det = torch.linalg.det(x)
+        i = first_bad_row(det < 0)
+        if i is not None:
+            raise InputError(f"row {i}: determinant {float(det[i]):.6g}: a reflection, not a rotation", row=i)
+        return self.project(x)
+
+    def project(self, x):
+        """Nearest rotation in the Frobenius norm: U diag(1, 1, det(UV^T)) V^T from the SVD x = U S V^T."""
+        u, _, vh = torch.linalg.svd(x)
+        d = torch.linalg.det(u @ vh)
+        u = torch.cat([u[..., :2], u[..., 2:] * d[..., None, None]], dim=-1)
+        return u @ vh
+
+    def inner(self, x, u, v):
+        """(1/2) tr(u^T v)."""
+        return 0.5 * (u * v).sum((-1, -2))
+
+    def to_tangent(self, x, v):
+        """x · skew(x^T v): orthogonal projection in the metric (a multiple of the Frobenius one on the ambient space)."""
+        a = x.transpose(-1, -2) @ v
+        return x @ (0.5 * (a - a.transpose(-1, -2)))
+
+    def exp(self, x, v):
+        return x @ exp_so3(vee(x.transpose(-1, -2) @ v))
+
+    def log(self, x, y):
+        return x @ hat(log_so3(x.transpose(-1, -2) @ y))
+
+    def dist(self, x, y):
+        """Rotation angle of x^T y, in [0, π]."""
+        return rotation_angle(x.transpose(-1, -2) @ y)
+
+    def tangent_basis(self, x):
+        """x L_i with L_i = [e_i]_× (orthonormal: (1/2) tr(L_i^T L_j) = δ_ij)."""
+        return x.unsqueeze(-3) @ _GENERATORS.to(x.device, x.dtype)
+
+    def random_tangent(self, x, generator=None):
+        """x [z]_× with z ~ N(0, I_3)."""
+        z = torch.randn(*x.shape[:-2], 3, dtype=x.dtype, device=x.device, generator=generator)
+        return x @ hat(z)
+
+    def random_uniform(self, n, generator=None):
+        """Haar-distributed rotations: normalised 4-D Gaussians are uniform unit quaternions."""
+        q = torch.randn(n, 4, dtype=DTYPE, generator=generator)
+        return quaternion_to_matrix(q / torch.linalg.vector_norm(q, dim=-1, keepdim=True))
+
+    @property
+    def log_volume(self) -> float:
+        return LOG_VOLUME
+
+    # --- features --------------------------------------------------------------------------
+    @property
+    def embed_dim(self) -> int:
+        return 9
+
+    def embed(self, x):
+        return x.flatten(start_dim=-2)
+
+    # --- heat flow -------------------------------------------------------------------------
+    @property
+    def time_range(self) -> tuple[float, float]:
+        # t_max: the slowest mode (l = 1, weight 3 e^{-t} χ_1, |χ_1| ≤ 3) is below 9 e^{-10} = 4e-4 of the uniform density
+        return (1e-4, 10.0)
+
+    def sample_forward(self, x0, t, generator=None):
+        """x0 · Exp(w a): angle w from the exact IGSO(3) angle law, axis a uniform on S^2."""
+        t = broadcast_time(t, x0, 2)
+        w = igso3_sample_angle(t.reshape(-1), generator).reshape(t.shape)
+        axis = torch.randn(*t.shape, 3, dtype=DTYPE, device=x0.device, generator=generator)
+        axis = axis / torch.linalg.vector_norm(axis, dim=-1, keepdim=True)
+        return x0 @ exp_so3(w.unsqueeze(-1) * axis)
+
+    def log_kernel(self, xt, x0, t):
+        t = broadcast_time(t, xt, 2)
+        return igso3_log_prob_and_dlog(self.dist(x0, xt), t)[0]
+
+    def score(self, xt, x0, t):
+        """(d/dw log p_t)(w) · grad_xt w, with grad_xt w = -log(xt, x0)/w (w = dist(x0, xt)).
+
+        Finite at w = 0 (d/dw log p_t is odd in w) and 0 there; at w = π the
+        derivative vanishes, so the choice of log is immaterial.
+        """
+        t = broadcast_time(t, xt, 2)
+        v = self.log(xt, x0)
+        w = self.norm(xt, v)
+        w_safe = torch.where(w > 0, w, torch.ones_like(w))
+        d = igso3_log_prob_and_dlog(w_safe, t)[1]
+        return (-d / w_safe)[..., None, None] * v
