@@ -1,10 +1,11 @@
 """Reverse-time geodesic random walk (Euler–Maruyama on a manifold).
 
-The forward process dX = dB_M (generator (1/2)Δ) has the time reversal
-dY = ∇ log p_{T-s}(Y) ds + dB_M. One step from time t to t - h draws a
-standard Gaussian tangent vector z at x and moves along the geodesic
+The forward process dX = f(X, t) dt + dB_M (B_M Brownian motion, generator
+(1/2)Δ; f = 0 for a pure heat flow) has the time reversal
+dY = [∇ log p_{T-s}(Y) - f(Y, T-s)] ds + dB_M. One step from time t to t - h
+draws a standard Gaussian tangent vector z at x and moves along the geodesic
 
-    x  <-  exp_x( h · s(x, t) + sqrt(h) · z ).
+    x  <-  exp_x( h · (s(x, t) - f(x, t)) + sqrt(h) · z ).
 
 Times follow the schedule's geometric grid from t_max to t_min; the last step
 adds no noise (common practice: it removes a noise of scale sqrt(t_min)).
@@ -30,7 +31,7 @@ def geodesic_random_walk(field, n: int, steps: int = 500, generator: torch.Gener
         for i in tqdm(range(steps), desc="sampling (random walk)", disable=not progress, leave=False):
             t, t_next = times[i], times[i + 1]
             h = t - t_next
-            v = h * field.score(x, t)
+            v = h * (field.score(x, t) - space.drift(x, t))
             if i < steps - 1:
                 v = v + h.sqrt() * space.random_tangent(x, generator)
             x = space.exp(x, v)

@@ -29,7 +29,7 @@ def predictor_corrector(field, n: int, steps: int = 500, generator: torch.Genera
             t, t_next = times[i], times[i + 1]
             h = t - t_next
             last = i == steps - 1
-            v = h * field.score(x, t)
+            v = h * (field.score(x, t) - space.drift(x, t))
             if not last:
                 v = v + h.sqrt() * space.random_tangent(x, generator)
             x = space.exp(x, v)

@@ -207,6 +207,26 @@ class Space(ABC):
     def score(self, xt: torch.Tensor, x0: torch.Tensor, t) -> torch.Tensor:
         """Riemannian gradient in ``xt`` of ``log_kernel(xt, x0, t)``: a tangent vector at xt."""
 
+    def drift(self, x: torch.Tensor, t) -> torch.Tensor:
+        """Forward drift f(x, t) (a tangent vector): dX = f dt + dB_M. Zero for a pure heat flow.
+
+        Spaces whose forward process needs a confining drift to have a
+        stationary law (e.g. the Ornstein–Uhlenbeck flow of the simplex) override
+        this; samplers use the reverse drift s(x, t) - f(x, t).
+        """
+        return torch.zeros_like(x)
+
+    def log_volume_density(self, x: torch.Tensor) -> torch.Tensor:
+        """log of d(Riemannian volume)/d(reference measure) at x; 0 where they coincide.
+
+        Densities are computed w.r.t. the Riemannian volume (so the score is a
+        Riemannian gradient) and reported w.r.t. the space's reference measure
+        by adding this term — e.g. the simplex reports densities w.r.t.
+        Lebesgue measure on the first K-1 coordinates.
+        """
+        batch = x.shape[: x.dim() - len(self.ambient_shape)]
+        return torch.zeros(batch, dtype=DTYPE, device=x.device)
+
     def prior_sample(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
         """Draw from the law the reverse process starts from (uniform for compact spaces)."""
         return self.random_uniform(n, generator)
