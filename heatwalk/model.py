@@ -69,6 +69,20 @@ class Model:
         with torch.no_grad():
             return fn(field, n, steps=steps, generator=generator, progress=progress, **options)
 
+    def elbo(self, x, n_time_samples: int = 32, seed: int | None = 0,
+             generator: torch.Generator | None = None, **options):
+        """Upper bound on -log p(x) per data point, from the objective's ELBO (nats; see the objective).
+
+        Objectives without a likelihood bound raise :class:`InputError`.
+        """
+        fn = getattr(self.objective, "elbo", None)
+        if fn is None:
+            raise InputError(f"the {type(self.objective).__name__} objective has no ELBO", field="objective")
+        if generator is None:
+            generator = torch.Generator().manual_seed(0 if seed is None else seed)
+        with torch.no_grad():
+            return fn(self.network, self.space.validate(x), generator, n_time_samples, **options)
+
     # ----- persistence ---------------------------------------------------------------------
     def config(self) -> dict:
         return {

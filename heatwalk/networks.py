@@ -55,3 +55,8 @@ def network_name(net: nn.Module) -> str:
         if type(net) is cls:
             return name
     raise InputError(f"network class {type(net).__name__} is not registered in heatwalk.networks.NETWORKS")
+
+
+from heatwalk.sequence_networks import TransformerDenoiser  # noqa: E402  (sequence models)
+
+NETWORKS["transformer"] = TransformerDenoiser

@@ -97,6 +97,10 @@ class ScoreMatching:
 
 OBJECTIVES: dict[str, type] = {"score_matching": ScoreMatching}
 
+from heatwalk.discrete_objective import DiscreteELBO  # noqa: E402  (finite state spaces)
+
+OBJECTIVES["discrete_elbo"] = DiscreteELBO
+
 
 def make_objective(space: Space, config: dict | None = None, time_range: tuple[float, float] | None = None):
     """Objective for ``space``: from a saved ``config`` or the space's defaults."""

@@ -11,10 +11,14 @@ from heatwalk.spaces.base import Space
 from heatwalk.spaces.torus import Torus
 from heatwalk.spaces.sphere import Sphere
 from heatwalk.spaces.so3 import SO3
+from heatwalk.spaces.simplex import Simplex
+from heatwalk.spaces.categories import Categories
 
 SPACE_KINDS: dict[str, type] = {"torus": Torus}
 SPACE_KINDS["sphere"] = Sphere
 SPACE_KINDS["so3"] = SO3
+SPACE_KINDS["simplex"] = Simplex
+SPACE_KINDS["categories"] = Categories
 
 __all__ = ["Space", "Torus", "Sphere", "SPACE_KINDS", "from_config", "register"]
 

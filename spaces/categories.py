@@ -1,0 +1,355 @@
+"""Sequences of L symbols from a finite alphabet of K states, noised by a continuous-time Markov chain.
+
+Time schedule
+-------------
+Diffusion time runs over t in [0, 1]. Each position moves independently by
+the chain with rate matrix Q (:mod:`heatwalk.kernels.ctmc`) run at the
+time-dependent rate β(t) = 1 / ((1 - t)·gap), so the operational time is
+
+    τ(t) = -log(1 - t) / gap,    P_t = exp(τ(t) Q),
+
+where ``gap`` is Q's spectral gap. The slowest mode of the chain then decays
+exactly as (1 - t): for the uniform and absorbing chains (gap 1)
+
+    P_t = (1 - t) I + t · 1 πᵀ,
+
+the "linear schedule" of masked diffusion (Sahoo et al. 2024, Shi et al.
+2024), and at t = 1 every position has exactly the stationary law π, which is
+the prior: uniform over the K states for ``process="uniform"``, the mask
+state for ``process="absorbing"``, the stationary law of the given rates for
+``process="rates"``. So the prior term of the ELBO vanishes at t_max = 1.
+
+Measure: counting measure on the K^L sequences; ``log_kernel`` and
+``prior_log_prob`` are natural-log probabilities (nats).
+
+Geometry (exp, log, tangent vectors, score) is undefined on a finite set:
+those methods raise ``TypeError``. ``dist`` is the Hamming distance.
+"""
+
+from __future__ import annotations
+
+import math
+
+import torch
+
+from heatwalk.errors import InputError
+from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix
+from heatwalk.spaces.base import Space
+
+PROCESSES = ("uniform", "absorbing", "rates")
+
+
+def sample_categorical(probs: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
+    """One draw per row of the last axis of ``probs`` (rows sum to 1): int64 of shape probs.shape[:-1]."""
+    cdf = probs.cumsum(-1)
+    u = torch.rand(probs.shape[:-1], dtype=probs.dtype, generator=generator).unsqueeze(-1) * cdf[..., -1:]
+    return (cdf <= u).sum(-1).clamp_max(probs.shape[-1] - 1)
+
+
+class Categories(Space):
+    """Sequences of ``L`` tokens, each one of ``K`` states; stored as int64 tensors of shape (n, L).
+
+    Parameters
+    ----------
+    K : number of data states (>= 2)
+    L : sequence length (>= 1)
+    process : "uniform" (jump to a uniformly drawn state), "absorbing" (jump to an extra mask state,
+        index K; network inputs then have K + 1 states) or "rates" (the chain with rate matrix
+        ``rates``). Default: "rates" if ``rates`` is given, else "uniform".
+    rates : (K, K) rate matrix for ``process="rates"`` (off-diagonals >= 0, rows sum to 0, a unique
+        stationary law); saved in :meth:`config`.
+    alphabet : optional K distinct one-character symbols naming the states (saved with the model so
+        samples can be written as text); state k is ``alphabet[k]``.
+    """
+
+    objective_name = "discrete_elbo"
+
+    def __init__(self, K: int, L: int, process: str | None = None, rates=None, alphabet=None):
+        if not isinstance(K, int) or isinstance(K, bool) or K < 2:
+            raise InputError(f"Categories: K (number of states) must be an integer >= 2, got {K!r}", field="K")
+        if not isinstance(L, int) or isinstance(L, bool) or L < 1:
+            raise InputError(f"Categories: L (sequence length) must be a positive integer, got {L!r}", field="L")
+        if process is None:
+            process = "uniform" if rates is None else "rates"
+        if process not in PROCESSES:
+            raise InputError(f"Categories: process must be one of {PROCESSES}, got {process!r}", field="process")
+        if (process == "rates") != (rates is not None):
+            raise InputError("Categories: pass rates exactly when process='rates' "
+                             f"(got process={process!r}, rates {'given' if rates is not None else 'missing'})",
+                             field="rates")
+        self.K, self.L, self.process = K, L, process
+        self.alphabet = _check_alphabet(alphabet, K)
+        self._rates = None
+        if process == "uniform":
+            self.chain = CTMC.uniform(K)
+        elif process == "absorbing":
+            self.chain = CTMC.absorbing(K)
+        else:
+            q = check_rate_matrix(rates)
+            if q.shape != (K, K):
+                raise InputError(f"Categories: rates must be a ({K}, {K}) matrix for K = {K}, got {q.shape}",
+                                 field="rates")
+            self._rates = q.tolist()
+            self.chain = CTMC(q)
+        self.n_states = self.chain.n_states          # K, or K + 1 with the mask state
+        self.mask_state = K if process == "absorbing" else None
+        self.stationary = self.chain.stationary      # the prior law of one position
+        self.dim = 0
+        self.ambient_shape = (L,)
+
+    @classmethod
+    def from_config(cls, args: dict) -> "Categories":
+        return cls(**args)
+
+    def config(self) -> dict:
+        return {"kind": "categories", "K": self.K, "L": self.L, "process": self.process,
+                "rates": self._rates, "alphabet": None if self.alphabet is None else "".join(self.alphabet)}
+
+    # ----- text <-> codes ------------------------------------------------------------------------
+    def encode(self, strings) -> torch.Tensor:
+        """List of strings over ``alphabet`` -> validated codes (n, L)."""
+        if self.alphabet is None:
+            raise InputError("Categories.encode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
+        from heatwalk.sequences import encode_records
+        return self.validate(encode_records(list(strings), self.alphabet, length=self.L))
+
+    def decode(self, x: torch.Tensor) -> list[str]:
+        """Codes (n, L) -> strings over ``alphabet``."""
+        if self.alphabet is None:
+            raise InputError("Categories.decode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
+        x = self.validate(x)
+        return ["".join(self.alphabet[k] for k in row) for row in x.tolist()]
+
+    # ----- validation, file rows -------------------------------------------------------------------
+    def validate(self, x) -> torch.Tensor:
+        """Return ``x`` as int64 codes (n, L) in [0, K); accepts integer-valued floats.
+
+        Raises :class:`InputError` naming the first bad row and position.
+        """
+        t = torch.as_tensor(x)
+        if t.dim() == 1 and t.shape[0] == self.L:
+            t = t.unsqueeze(0)
+        if t.dim() != 2 or t.shape[1] != self.L:
+            raise InputError(f"sequences: expected shape (n, {self.L}), got {tuple(t.shape)}")
+        if t.dtype == torch.bool or t.is_complex():
+            raise InputError(f"sequences: expected integer codes, got dtype {t.dtype}")
+        if t.is_floating_point():
+            bad = ~torch.isfinite(t) | (t != torch.round(t))
+            if bool(bad.any()):
+                i, j = map(int, bad.nonzero()[0])
+                raise InputError(f"row {i}, position {j}: {float(t[i, j])!r} is not an integer state code",
+                                 row=i, field=str(j))
+        t = t.to(torch.int64) if t.is_floating_point() else t.long()
+        bad = (t < 0) | (t >= self.K)
+        if bool(bad.any()):
+            i, j = map(int, bad.nonzero()[0])
+            raise InputError(f"row {i}, position {j}: state {int(t[i, j])} is outside [0, {self.K})",
+                             row=i, field=str(j))
+        return t
+
+    def from_rows(self, rows, **options) -> torch.Tensor:
+        if options:
+            raise InputError(f"Categories takes no reading options, got {sorted(options)}")
+        return self.validate(rows)
+
+    def to_rows(self, x, **options):
+        if options:
+            raise InputError(f"Categories takes no writing options, got {sorted(options)}")
+        return x
+
+    def column_names(self, **options) -> list[str]:
+        return [f"pos{i}" for i in range(self.L)]
+
+    def random_uniform(self, n, generator=None):
+        return torch.randint(self.K, (n, self.L), generator=generator)
+
+    @property
+    def log_volume(self) -> float:
+        """log of the number of sequences, L log K (counting measure)."""
+        return self.L * math.log(self.K)
+
+    def dist(self, x, y):
+        """Hamming distance: number of positions where the sequences differ."""
+        return (x != y).sum(-1)
+
+    # ----- network features ------------------------------------------------------------------------
+    @property
+    def embed_dim(self) -> int:
+        return self.L * self.n_states
+
+    def embed(self, x):
+        """One-hot float64 features of shape (..., L * n_states) (n_states includes the mask state)."""
+        return torch.nn.functional.one_hot(x, self.n_states).to(DTYPE).flatten(start_dim=-2)
+
+    # ----- the forward chain --------------------------------------------------------------------------
+    @property
+    def time_range(self) -> tuple[float, float]:
+        # t_max = 1: the law is exactly the prior. t_min = 1e-3: the reconstruction term of the ELBO
+        # covers the last 0.1% of corruption (about L/1000 corrupted positions).
+        return (1e-3, 1.0)
+
+    def _time(self, t) -> torch.Tensor:
+        t = torch.as_tensor(t, dtype=DTYPE)
+        if torch.isnan(t).any() or (t < 0).any() or (t > 1).any():
+            bad = t[torch.isnan(t) | (t < 0) | (t > 1)].flatten()[0]
+            raise InputError(f"Categories: diffusion time must lie in [0, 1], got {float(bad)}", field="t")
+        return t
+
+    def operational_time(self, t) -> torch.Tensor:
+        """τ(t) = -log(1 - t) / gap (inf at t = 1)."""
+        return -torch.log1p(-self._time(t)) / self.chain.spectral_gap
+
+    def transition(self, t) -> torch.Tensor:
+        """P_t = exp(τ(t) Q): shape (*t.shape, n_states, n_states); P_t[a, b] = Pr(x_t = b | x_0 = a)."""
+        return self.chain.transition(self.operational_time(t))
+
+    def transition_between(self, s, t) -> torch.Tensor:
+        """Pr(x_t = b | x_s = a) for s <= t: exp((τ(t) - τ(s)) Q)."""
+        ts, tt = self.operational_time(s), self.operational_time(t)
+        if (ts > tt).any():
+            raise InputError("Categories.transition_between: need s <= t", field="s")
+        d = torch.where(torch.isinf(tt) & torch.isinf(ts), torch.zeros_like(tt), tt - ts)
+        return self.chain.transition(d)
+
+    def rates(self, t) -> torch.Tensor:
+        """Forward rate matrix at time t, β(t) Q with β(t) = dτ/dt = 1 / ((1 - t) gap): (*t.shape, n, n)."""
+        t = self._time(t)
+        beta = 1.0 / ((1.0 - t) * self.chain.spectral_gap)
+        return beta[..., None, None] * self.chain.rates
+
+    def _rows(self, t, n: int) -> torch.Tensor:
+        t = torch.as_tensor(t, dtype=DTYPE)
+        return t.expand(n) if t.dim() == 0 else t.reshape(n)
+
+    def sample_forward(self, x0, t, generator=None):
+        """Exact draw of x_t | x_0, independently at each position: (n, L) int64 in [0, n_states)."""
+        p = self.transition(self._rows(t, x0.shape[0]))  # (n, S, S)
+        probs = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))  # (n, L, S)
+        return sample_categorical(probs, generator)
+
+    def log_kernel(self, xt, x0, t):
+        """log Pr(x_t | x_0) summed over positions, nats (counting measure); -inf where impossible."""
+        p = self.transition(self._rows(t, x0.shape[0]))
+        rows = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))
+        return torch.log(torch.gather(rows, 2, xt.unsqueeze(-1)).squeeze(-1)).sum(-1)
+
+    def x0_support(self, xt, t) -> torch.Tensor:
+        """(n, L, K) bool: data states a with Pr(x_t | x_0 = a) > 0 at each position."""
+        p = self.transition(self._rows(t, xt.shape[0]))[:, : self.K, :]  # (n, K, S)
+        return torch.gather(p, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2) > 0
+
+    def posterior(self, xt, x0_probs, s, t) -> torch.Tensor:
+        """q(x_s | x_t) = Σ_a p(a) q(x_s | x_t, x_0 = a) at each position, for s < t: (n, L, n_states).
+
+        ``x0_probs`` (n, L, K) are probabilities of the data states of x_0 (e.g. a network's
+        prediction); states inconsistent with x_t (Pr(x_t | a) = 0) must carry zero mass. By
+        Bayes, q(x_s = v | x_t, a) = P_{s→t}[v, x_t] P_s[a, v] / P_t[a, x_t].
+        """
+        n = xt.shape[0]
+        ps = self.transition(self._rows(s, n))[:, : self.K, :]            # (n, K, S)
+        pt = self.transition(self._rows(t, n))[:, : self.K, :]            # (n, K, S)
+        pst = self.transition_between(self._rows(s, n), self._rows(t, n))  # (n, S, S)
+        pt_x = torch.gather(pt, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2)  # (n, L, K)
+        if bool(((x0_probs > 0) & (pt_x == 0)).any()):
+            raise InputError("posterior: x0_probs put mass on states that cannot have produced x_t", field="x0_probs")
+        w = torch.where(pt_x > 0, x0_probs / torch.where(pt_x > 0, pt_x, 1.0), 0.0)  # (n, L, K)
+        back = torch.gather(pst, 2, xt.unsqueeze(1).expand(-1, self.n_states, -1)).transpose(1, 2)  # (n, L, S)
+        return back * (w @ ps)
+
+    def log_reverse_rates(self, xt, log_x0_probs, t) -> torch.Tensor:
+        """log of the reverse-time jump rates at time t, for each position and target state: (n, L, n_states).
+
+        The time reversal of the chain jumps at position l from x_l to v at rate
+        R_t(v → x_l) Σ_a p(a) P_t[a, v] / P_t[a, x_l] (Campbell et al. 2022, eq. 4, with the
+        x_0-prediction parametrisation), where p = exp(log_x0_probs) over the K data states;
+        states a with P_t[a, x_l] = 0 are excluded. -inf where no jump is possible (and at v = x_l).
+        """
+        n = xt.shape[0]
+        tt = self._rows(t, n)
+        lp = torch.log(self.transition(tt)[:, : self.K, :])                         # (n, K, S)
+        lp_x = torch.gather(lp, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2)  # (n, L, K)
+        ninf = torch.tensor(-math.inf, dtype=DTYPE)
+        ok_a = torch.isfinite(lp_x) & torch.isfinite(log_x0_probs)                   # (n, L, K)
+        base = torch.where(ok_a, log_x0_probs, 0.0) - torch.where(ok_a, lp_x, 0.0)   # finite everywhere
+        ok_v = torch.isfinite(lp).unsqueeze(1) & ok_a.unsqueeze(-1)                   # (n, 1|L, K, S)
+        terms = torch.where(ok_v, base.unsqueeze(-1) + torch.where(torch.isfinite(lp), lp, 0.0).unsqueeze(1), ninf)
+        ratio = torch.logsumexp(terms, dim=2)                                        # (n, L, S)
+        r = self.rates(tt)                                                           # (n, S, S): r[v, x]
+        into = torch.gather(r, 2, xt.unsqueeze(1).expand(-1, self.n_states, -1)).transpose(1, 2)  # R(v -> x_l)
+        jump = (into > 0) & torch.isfinite(ratio)
+        jump = jump & (torch.arange(self.n_states) != xt.unsqueeze(-1))
+        return torch.where(jump, torch.log(torch.where(jump, into, 1.0)) + torch.where(jump, ratio, 0.0), ninf)
+
+    def prior_kl(self, x0, t) -> torch.Tensor:
+        """Σ_l KL(P_t[x0_l, ·] || π) in nats: the prior term of the ELBO (0 at t = 1). Shape (n,)."""
+        p = self.transition(self._rows(t, x0.shape[0]))
+        rows = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))  # (n, L, S)
+        pi = self.stationary
+        with torch.no_grad():
+            if bool(((rows > 0) & (pi == 0)).any()):
+                return torch.full((x0.shape[0],), math.inf, dtype=DTYPE)
+        logratio = torch.where(rows > 0, torch.log(torch.where(rows > 0, rows, 1.0) / torch.where(pi > 0, pi, 1.0)), 0.0)
+        return (rows * logratio).sum((-1, -2))
+
+    def prior_sample(self, n, generator=None):
+        """x_1 ~ π at each position (uniform states, or all mask for the absorbing chain)."""
+        return sample_categorical(self.stationary.expand(n, self.L, self.n_states), generator)
+
+    def prior_log_prob(self, x):
+        lp = torch.log(self.stationary)
+        return lp[x].sum(-1)
+
+    # ----- undefined on a finite set ------------------------------------------------------------------
+    def _undefined(self, name):
+        raise TypeError(f"Categories.{name} is undefined on a finite state space (there is no tangent space "
+                        "or geodesic); the discrete ELBO objective and its samplers do not need it")
+
+    def project(self, x):
+        self._undefined("project")
+
+    def to_tangent(self, x, v):
+        self._undefined("to_tangent")
+
+    def exp(self, x, v):
+        self._undefined("exp")
+
+    def log(self, x, y):
+        self._undefined("log")
+
+    def inner(self, x, u, v):
+        self._undefined("inner")
+
+    def norm(self, x, v):
+        self._undefined("norm")
+
+    def tangent_basis(self, x):
+        self._undefined("tangent_basis")
+
+    def random_tangent(self, x, generator=None):
+        self._undefined("random_tangent")
+
+    def score(self, xt, x0, t):
+        raise TypeError("Categories.score is undefined on a finite state space (no gradient); its role is played "
+                        "by the network's x0 logits through log_reverse_rates")
+
+
+def _check_alphabet(alphabet, K: int):
+    if alphabet is None:
+        return None
+    if isinstance(alphabet, str):
+        symbols = list(alphabet)
+    else:
+        symbols = list(alphabet)
+        for i, s in enumerate(symbols):
+            if not isinstance(s, str) or len(s) != 1:
+                raise InputError(f"alphabet: symbol {i} is {s!r}, expected a single character", field="alphabet")
+    if len(symbols) != K:
+        raise InputError(f"alphabet: has {len(symbols)} symbols, expected K = {K}", field="alphabet")
+    seen = set()
+    for s in symbols:
+        if s in seen:
+            raise InputError(f"alphabet: symbol {s!r} appears twice", field="alphabet")
+        if s.isspace() or s == ">":
+            raise InputError(f"alphabet: symbol {s!r} cannot be written in FASTA or text files", field="alphabet")
+        seen.add(s)
+    return symbols

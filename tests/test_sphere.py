@@ -1,0 +1,305 @@
+"""Sphere S^d: heat kernel against mpmath, sampler against quadrature and a random walk,
+geometry against geomstats, validation errors.
+
+Tolerance convention for the kernel: errors are relative to max(1, |reference|).
+"""
+
+import math
+
+import mpmath as mp
+import numpy as np
+import pytest
+import torch
+from scipy import stats
+from scipy.integrate import quad, quad_vec
+
+from heatwalk import InputError
+from heatwalk.kernels.sphere_heat import log_sphere_area, sample_sphere_radius, sphere_heat_log_prob_and_score
+from heatwalk.spaces import Sphere, Torus, from_config
+
+F64 = torch.float64
+TIMES = [1e-5, 1e-4, 1e-3, 1e-2, 0.1, 0.44, 0.46, 2.0, 50.0]  # log-spaced, plus both sides of the switch
+RADII = [0.0, 1e-6, 0.05, 0.7, 1.6, 2.6, 3.1, math.pi - 1e-6, math.pi - 1e-9, math.pi]
+
+
+def kernel(r, t, d):
+    lp, sc = sphere_heat_log_prob_and_score(torch.tensor(r, dtype=F64), torch.tensor(t, dtype=F64), d)
+    return float(lp), float(sc)
+
+
+# ---- mpmath references (50 digits or more) ------------------------------------------------------
+def mp_gegenbauer_series(r, t, d, extra_digits=0):
+    """Eigen-series Σ_l e^{-l(l+d-1)t/2} (2l+d-1)/(d-1) C_l^{(d-1)/2}(cos r) / |S^d| and its r-derivative."""
+    with mp.workdps(50 + extra_digits):
+        r, t = mp.mpf(r), mp.mpf(t)
+        a = mp.mpf(d - 1) / 2
+        n = int(mp.sqrt(2 * (50 + extra_digits) * 2.31 / t + 4 * a * a)) + 20
+        x = mp.cos(r)
+        c0, c1 = mp.mpf(1), 2 * a * x  # C_l^a
+        g0, g1 = mp.mpf(0), mp.mpf(1)  # C_{l-1}^{a+1}
+        s, ds = mp.mpf(1), mp.mpf(0)
+        for l in range(1, n + 1):
+            w = (l + a) / a * mp.exp(-l * (l + 2 * a) * t / 2)
+            s += w * c1
+            ds -= w * 2 * a * mp.sin(r) * g1
+            c0, c1 = c1, (2 * x * (l + a) * c1 - (l + 2 * a - 1) * c0) / (l + 1)
+            g0, g1 = g1, (2 * x * (l + a) * g1 - (l + 2 * a) * g0) / l
+        area = 2 * mp.pi ** ((d + 1) / mp.mpf(2)) / mp.gamma((d + 1) / mp.mpf(2))
+        return mp.log(s / area), ds / s
+
+
+def mp_s3_images(r, t):
+    """S^3 closed form (images of the S^1 kernel under -(2π sin r)^{-1} d/dr, times e^{t/2})."""
+    with mp.workdps(50):
+        t = mp.mpf(t)
+
+        def logp(r):
+            k_max = int(3 * mp.sqrt(t)) + 4
+            s = sum((r + 2 * mp.pi * k) * mp.exp(-(r + 2 * mp.pi * k) ** 2 / (2 * t)) for k in range(-k_max, k_max + 1))
+            return t / 2 - mp.mpf(1.5) * mp.log(2 * mp.pi * t) + mp.log(s / mp.sin(r))
+
+        r = mp.mpf(r) if r > 0 else mp.mpf(10) ** -30
+        return logp(r), mp.diff(logp, r)
+
+
+def mp_s2_mehler(theta, t, dps=30):
+    """S^2 via the Mehler–Dirichlet integral (DLMF 14.12) summed with the theta-function images:
+    p = e^{t/8} / (2 π^{3/2} t^{3/2}) ∫_θ^π Σ_k (-1)^k (φ-2πk) e^{-(φ-2πk)²/2t} / sqrt(cos θ - cos φ) dφ,
+    integrated by mpmath tanh-sinh in v = sqrt(φ - θ)."""
+    with mp.workdps(dps):
+        th, t = mp.mpf(theta), mp.mpf(t)
+
+        def g(v):
+            phi = th + v * v
+            tot = sum((-1) ** k * (phi - 2 * mp.pi * k) * mp.exp(-((phi - 2 * mp.pi * k) ** 2 - th * th) / (2 * t))
+                      for k in range(-3, 4))
+            return 2 * v * tot / mp.sqrt(2 * mp.sin((2 * mp.pi - phi - th) / 2) * mp.sin(v * v / 2))
+
+        v_max = mp.sqrt(mp.pi - th)
+        scale = mp.sqrt(t / max(th, mp.sqrt(t)))
+        pts = [mp.mpf(0)] + [c * scale for c in (1, 3, 10, 30, 100) if c * scale < v_max] + [v_max]
+        return mp.log(mp.exp(t / 8) / (2 * mp.pi ** 1.5 * t ** 1.5) * mp.quad(g, pts)) - th * th / (2 * t)
+
+
+def s2_reference(r, t):
+    digits_lost = r * r / (2 * t) / 2.3
+    if digits_lost < 40:  # the eigen-series is summable at 50 + digits_lost digits
+        return mp_gegenbauer_series(r, t, 2, extra_digits=int(digits_lost) + 5)
+    # derivative: central difference; step below π - r so both points lie in [0, π]. Next to π the
+    # score is ~(π - r)/t², so the difference needs ~50 digits there, 30 elsewhere.
+    dps = 50 if math.pi - r < 1e-5 else 30
+    lp = mp_s2_mehler(r, t, dps)
+    with mp.workdps(dps):
+        h = min(mp.mpf(10) ** -10, (mp.pi - mp.mpf(r)) / 4)
+        d = (mp_s2_mehler(mp.mpf(r) + h, t, dps) - mp_s2_mehler(mp.mpf(r) - h, t, dps)) / (2 * h)
+    return lp, d
+
+
+def _worst(d, reference):
+    worst_lp, worst_sc, where_lp, where_sc = 0.0, 0.0, None, None
+    for t in TIMES:
+        for r in RADII:
+            lp, sc = kernel(r, t, d)
+            rl, rs = (float(v) for v in reference(r, t))
+            e1 = abs(lp - rl) / max(1.0, abs(rl))
+            e2 = abs(sc - rs) / max(1.0, abs(rs))
+            if e1 > worst_lp:
+                worst_lp, where_lp = e1, (t, r)
+            if e2 > worst_sc:
+                worst_sc, where_sc = e2, (t, r)
+    return worst_lp, where_lp, worst_sc, where_sc
+
+
+@pytest.mark.parametrize("d,reference", [(3, mp_s3_images), (2, s2_reference)], ids=["S3", "S2"])
+def test_kernel_against_mpmath(d, reference):
+    # source: mpmath at >= 30-50 digits (S^3: closed image sum; S^2: eigen-series where it is summable,
+    # Mehler–Dirichlet integral elsewhere). Tolerance: log p 1e-9, d/dr log p 1e-7, relative to max(1, |.|).
+    wl, at_l, ws, at_s = _worst(d, reference)
+    assert wl < 1e-9, f"S^{d}: worst log-density error {wl:.3g} at (t, r) = {at_l}"
+    assert ws < 1e-7, f"S^{d}: worst radial-score error {ws:.3g} at (t, r) = {at_s}"
+
+
+def test_mehler_reference_agrees_with_series():
+    # the two mpmath references agree where both apply (cross-check of the reference itself), to 1e-20
+    for r, t in [(2.5, 0.3), (3.1, 0.2), (1.0, 0.01)]:
+        a = mp_gegenbauer_series(r, t, 2, extra_digits=20)[0]
+        b = mp_s2_mehler(r, t, dps=40)
+        assert abs(a - b) < 1e-20, (r, t, a, b)
+
+
+@pytest.mark.parametrize("d", [4, 5])
+def test_higher_d_series_against_mpmath(d):
+    # source: mpmath Gegenbauer series at 50 digits; where the series is accurate: tolerance 1e-9 / 1e-7
+    for t in (1e-3, 0.1, 1.0, 10.0):
+        for r in (0.0, 0.5 * math.sqrt(t), 2 * math.sqrt(t), 1.0, 3.0):
+            if r * r / (2 * t) > 10 or r > math.pi:
+                continue
+            lp, sc = kernel(r, t, d)
+            rl, rs = (float(v) for v in mp_gegenbauer_series(r, t, d))
+            assert abs(lp - rl) < 1e-9 * max(1, abs(rl)), (d, t, r, lp, rl)
+            assert abs(sc - rs) < 1e-7 * max(1, abs(rs)), (d, t, r, sc, rs)
+
+
+def test_higher_d_refuses_inaccurate_regime():
+    with pytest.raises(InputError, match="cannot reach 1e-10 relative accuracy"):
+        sphere_heat_log_prob_and_score(torch.tensor([0.1, 3.0], dtype=F64), torch.tensor(1e-3, dtype=F64), 4)
+
+
+@pytest.mark.parametrize("d", [2, 3])
+def test_short_time_asymptotics(d):
+    # source: Minakshisundaram–Pleijel leading term with the van Vleck determinant,
+    # p ≈ (2πt)^{-d/2} (r / sin r)^{(d-1)/2} e^{-r²/2t} (1 + O(t)); check |error| <= t for r <= 2
+    for t in (1e-5, 1e-4, 1e-3):
+        for r in (0.0, 0.3, 1.0, 2.0):
+            lp, _ = kernel(r, t, d)
+            lead = -0.5 * d * math.log(2 * math.pi * t) - r * r / (2 * t) + 0.5 * (d - 1) * math.log(
+                r / math.sin(r) if r > 0 else 1.0)
+            assert abs(lp - lead) <= t, (d, t, r, lp - lead)
+
+
+@pytest.mark.parametrize("d", [2, 3])
+def test_normalisation_quad(d):
+    # source: scipy.integrate.quad of p_t(r) |S^{d-1}| sin^{d-1} r over [0, π] in s = r/sqrt(t); tolerance 1e-9
+    for t in (1e-5, 1e-3, 0.1, 0.44, 0.46, 2.0):
+        def f(s):
+            r = min(s * math.sqrt(t), math.pi)
+            lp, _ = kernel(r, t, d)
+            return math.sqrt(t) * math.exp(lp + log_sphere_area(d - 1)) * math.sin(r) ** (d - 1)
+        s_max = math.pi / math.sqrt(t)
+        pts = [x for x in (1.0, 2.0, 4.0, 8.0, 16.0) if x < s_max]
+        total = quad(f, 0, s_max, points=pts, limit=400, epsabs=1e-13, epsrel=1e-13)[0]
+        assert abs(total - 1) < 1e-9, (d, t, total - 1)
+
+
+@pytest.mark.parametrize("d", [2, 3])
+def test_radial_score_finite_differences(d):
+    # central differences of log p in r, step 1e-6 sqrt(t): error O(h²) + eps/h; tolerance 1e-6 relative
+    for t in (1e-4, 0.05, 0.44, 0.46, 3.0):
+        for r in (0.3 * math.sqrt(t), 2 * math.sqrt(t), 1.5, 3.0):
+            h = 1e-6 * math.sqrt(t)
+            fd = (kernel(r + h, t, d)[0] - kernel(r - h, t, d)[0]) / (2 * h)
+            sc = kernel(r, t, d)[1]
+            assert abs(fd - sc) < 1e-6 * max(1.0, abs(sc)) + 1e-9 / h * 1e-6, (d, t, r, fd, sc)
+
+
+def _radial_cdf(t, d):
+    """CDF of r from scipy.integrate.quad_vec (adaptive, vector-valued) over 400 pieces of [0, π]."""
+    edges = np.linspace(0, math.pi, 401)
+    a, w = edges[:-1], np.diff(edges)
+
+    def pieces(s):
+        r = torch.tensor(a + s * w, dtype=F64)
+        lp = sphere_heat_log_prob_and_score(r, torch.full_like(r, t), d)[0]
+        return w * np.exp(lp.numpy() + log_sphere_area(d - 1)) * np.sin(r.numpy()) ** (d - 1)
+
+    vals = quad_vec(pieces, 0.0, 1.0, epsabs=1e-14, epsrel=1e-12)[0]
+    cdf = np.concatenate([[0.0], np.cumsum(vals)])
+    assert abs(cdf[-1] - 1) < 1e-9
+    return lambda x: np.interp(x, edges, cdf)  # linear interpolation error below 1e-5 at this grid
+
+
+@pytest.mark.parametrize("d", [2, 3])
+@pytest.mark.parametrize("t", [0.02, 0.6])
+def test_sampler_kolmogorov_smirnov(d, t):
+    # source: scipy.stats.kstest against the CDF from scipy quad_vec; fixed seed, 20k draws per path;
+    # failure rate of a correct sampler: 1e-3 per test (p-value threshold).
+    cdf = _radial_cdf(t, d)
+    g = torch.Generator().manual_seed(123)
+    exact_path = sample_sphere_radius(torch.full((20000,), t, dtype=F64), d, g)
+    # distinct times (> 64) go through the table interpolated in log t
+    table_path = sample_sphere_radius(t * (1 + 1e-12 * torch.rand(20000, dtype=F64, generator=g)), d, g)
+    for r in (exact_path, table_path):
+        assert stats.kstest(r.numpy(), cdf).pvalue > 1e-3
+
+
+@pytest.mark.parametrize("d", [2, 3])
+def test_sampler_vs_geodesic_random_walk(d):
+    # independent sampler: geodesic random walk with 400 Gaussian tangent steps of variance t/400 each.
+    # E[r²] agrees within 5 standard errors plus the walk's O(step) bias (relative ~ d·t/400, below 1e-3).
+    space = Sphere(d)
+    t, n, steps = 0.04, 20000, 400
+    g = torch.Generator().manual_seed(7)
+    x0 = space.random_uniform(1, g).expand(n, d + 1).clone()
+    x = x0.clone()
+    for _ in range(steps):
+        x = space.exp(x, math.sqrt(t / steps) * space.random_tangent(x, g))
+    r2_walk = space.dist(x, x0) ** 2
+    r2_exact = space.dist(space.sample_forward(x0, t, g), x0) ** 2
+    se = math.sqrt(float(r2_walk.var()) / n + float(r2_exact.var()) / n)
+    diff = abs(float(r2_walk.mean()) - float(r2_exact.mean()))
+    assert diff < 5 * se + 1e-3 * float(r2_exact.mean()), (diff, se)
+
+
+def test_exp_log_against_geomstats():
+    # source: geomstats 2.8 Hypersphere(dim=2) metric exp/log, numpy backend; tolerance 1e-10
+    import geomstats.backend  # noqa: F401
+    from geomstats.geometry.hypersphere import Hypersphere
+
+    gs_sphere = Hypersphere(dim=2)
+    space = Sphere(2)
+    g = torch.Generator().manual_seed(3)
+    x = space.random_uniform(50, g)
+    y = space.random_uniform(50, g)
+    v = 2.0 * space.random_tangent(x, g)
+    np.testing.assert_allclose(space.exp(x, v).numpy(), gs_sphere.metric.exp(v.numpy(), x.numpy()), atol=1e-10)
+    np.testing.assert_allclose(space.log(x, y).numpy(), gs_sphere.metric.log(y.numpy(), x.numpy()), atol=1e-10)
+
+
+def test_log_at_antipode_and_score_edges():
+    space = Sphere(2)
+    x = space.validate([[0.0, 0.0, 1.0], [1.0, 0.0, 0.0]])
+    v = space.log(x, -x)
+    torch.testing.assert_close(space.norm(x, v), torch.full((2,), math.pi, dtype=F64), atol=1e-14, rtol=0)
+    torch.testing.assert_close(space.to_tangent(x, v), v, atol=1e-14, rtol=0)
+    torch.testing.assert_close(space.exp(x, v), -x, atol=1e-12, rtol=0)
+    for t in (1e-3, 0.3, 3.0):
+        s = space.score(torch.cat([x, -x]), torch.cat([x, x]), t)
+        assert torch.isfinite(s).all() and float(s.abs().max()) < 1e-6
+
+
+def test_sphere1_matches_torus1():
+    th = torch.linspace(-3.1, 3.1, 17, dtype=F64)[:, None]
+    th0 = torch.full_like(th, 0.4)
+    pts = lambda a: torch.cat([torch.cos(a), torch.sin(a)], -1)  # noqa: E731
+    for t in (1e-3, 0.5, 5.0):
+        # same kernel; the two only differ in how the angle difference is rounded (few ulps)
+        torch.testing.assert_close(Sphere(1).log_kernel(pts(th), pts(th0), t), Torus(1).log_kernel(th, th0, t),
+                                   atol=1e-12, rtol=1e-13)
+
+
+def test_config_volume_and_rows():
+    s2 = Sphere(2)
+    assert from_config(s2.config()) == s2 and s2.config() == {"kind": "sphere", "d": 2}
+    assert abs(s2.log_volume - math.log(4 * math.pi)) < 1e-15  # area of S^2 = 4π
+    assert abs(Sphere(3).log_volume - math.log(2 * math.pi ** 2)) < 1e-15
+    rows = torch.tensor([[0.0, 0.0], [90.0, 10.0], [-45.0, 270.0], [30.0, -120.0]], dtype=F64)
+    x = s2.from_rows(rows, lonlat_degrees=True)
+    torch.testing.assert_close(x[1], torch.tensor([0.0, 0.0, 1.0], dtype=F64), atol=1e-15, rtol=0)
+    back = s2.to_rows(x, lonlat_degrees=True)
+    torch.testing.assert_close(back[[0, 3]], rows[[0, 3]], atol=1e-12, rtol=0)
+    torch.testing.assert_close(back[2], torch.tensor([-45.0, -90.0], dtype=F64), atol=1e-12, rtol=0)
+    assert s2.column_names(lonlat_degrees=True) == ["latitude_deg", "longitude_deg"]
+
+
+def test_validation_errors():
+    s2 = Sphere(2)
+    with pytest.raises(InputError, match="row 1 contains NaN"):
+        s2.validate([[1.0, 0, 0], [float("nan"), 0, 0]])
+    with pytest.raises(InputError, match=r"expected shape \(n, 3\)"):
+        s2.validate([[1.0, 0]])
+    with pytest.raises(InputError, match="row 0: is the zero vector"):
+        s2.validate([[0.0, 0, 0]])
+    with pytest.raises(InputError, match="row 1: has norm 1.1"):
+        s2.validate([[1.0, 0, 0], [1.1, 0, 0]])
+    ok = s2.validate([[1.0 + 5e-7, 0, 0]])  # within 1e-6: renormalised
+    assert float(ok.norm()) == 1.0
+    with pytest.raises(InputError, match="row 1, column 0: latitude 91"):
+        s2.from_rows([[0.0, 0.0], [91.0, 0.0]], lonlat_degrees=True)
+    with pytest.raises(InputError, match="row 0, column 1: longitude 400"):
+        s2.from_rows([[0.0, 400.0]], lonlat_degrees=True)
+    with pytest.raises(InputError, match="only defined for d = 2"):
+        Sphere(3).from_rows([[0.0, 0.0]], lonlat_degrees=True)
+    with pytest.raises(InputError, match="d must be an integer >= 1"):
+        Sphere(0)
+    with pytest.raises(InputError, match="time must be finite and > 0"):
+        s2.log_kernel(s2.random_uniform(2), s2.random_uniform(2), torch.tensor([0.1, -1.0]))
