@@ -290,12 +290,15 @@ def _solve_in_cells(target: torch.Tensor, cdf: torch.Tensor, coef_j: torch.Tenso
     for _ in range(N_NEWTON):
         tk = _chebyshev_values(s, coef_j.shape[-1])
         g = (coef_j * tk).sum(-1) - r
-        a = torch.where(g <= 0, s, a)
-        b = torch.where(g > 0, s, b)
         # a residual at the rounding level of the CDF (values ≤ 1) is converged: do not move (this also keeps
         # u ≈ 0 at w ≈ 0, where the slope vanishes and a Newton step would leave the bracket)
+        done = g.abs() <= CDF_ROUNDING
+        if bool(done.all()):
+            break
+        a = torch.where(g <= 0, s, a)
+        b = torch.where(g > 0, s, b)
         slope = (dcoef * tk[..., :-1]).sum(-1)
-        step = torch.where(g.abs() <= CDF_ROUNDING, s, s - g / slope.clamp_min(1e-300))
+        step = torch.where(done, s, s - g / slope.clamp_min(1e-300))
         s = torch.where((step >= a) & (step <= b), step, (a + b) / 2)
     cell_width = w_max / N_CELLS
     return cell_width * (j.to(torch.float64) + (s + 1) / 2)
@@ -375,11 +378,11 @@ class _LogTimeTable:
         p = (torch.searchsorted(bounds, tau, right=True) - 1).clamp(0, bounds.numel() - 2)
         x = (2 * tau - bounds[p] - bounds[p + 1]) / (bounds[p + 1] - bounds[p])
         tk = _chebyshev_values(x, TABLE_NODES)  # (n, nodes)
-        cdf = torch.einsum("bk,bkf->bf", tk, self.cdf.to(dev)[p])
-        coef = self.coef.to(dev)
+        cdf = torch.bmm(tk.unsqueeze(1), self.cdf.to(dev).index_select(0, p)).squeeze(1)
+        coef = self.coef.to(dev).flatten(0, 1)  # (P·C, n, K+2)
 
         def cell_coef(j):
-            return torch.einsum("bk,bkf->bf", tk, coef[p, j])
+            return torch.bmm(tk.unsqueeze(1), coef.index_select(0, p * N_CELLS + j)).squeeze(1)
 
         return cdf, cell_coef
 

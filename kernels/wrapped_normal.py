@@ -42,13 +42,28 @@ def wrap_angle(a: torch.Tensor) -> torch.Tensor:
     return torch.where(w >= math.pi, w - TWO_PI, w)
 
 
+# π as an unevaluated sum PI_HI + PI_LO (PI_LO = π - fl(π)), so d + kπ is exact near the seam
+PI_HI = math.pi
+PI_LO = 1.2246467991473532e-16
+
+
+def _plus_k_pi(d: torch.Tensor, k) -> torch.Tensor:
+    """d + kπ with the rounding of fl(π) removed (exact by Sterbenz's lemma when d ≈ -kπ)."""
+    return (d + k * PI_HI) + k * PI_LO
+
+
 def _images(d: torch.Tensor, t: torch.Tensor):
+    # Exponents relative to the k = 0 image: -(d + 2πk)²/2t + d²/2t = -2πk (d + πk) / t, with d + πk
+    # evaluated in two parts so the seam images (k = ±1 at d ≈ ∓π) keep full relative accuracy.
     k = torch.arange(-N_IMAGES, N_IMAGES + 1, dtype=d.dtype, device=d.device)
-    shifted = d.unsqueeze(-1) + TWO_PI * k  # (..., 2K+1)
-    expo = -shifted.square() / (2 * t.unsqueeze(-1))
-    logp = torch.logsumexp(expo, dim=-1) - 0.5 * torch.log(TWO_PI * t)
-    w = torch.softmax(expo, dim=-1)
-    score = -(w * shifted).sum(-1) / t
+    tt = t.unsqueeze(-1)
+    rel = -TWO_PI * k * _plus_k_pi(d.unsqueeze(-1), k) / tt  # (..., 2K+1)
+    logp = torch.logsumexp(rel, dim=-1) - d.square() / (2 * t) - 0.5 * torch.log(TWO_PI * t)
+    w = torch.softmax(rel, dim=-1)
+    # score = -(d + 2π E[k]) / t, regrouped around the nearest seam c ∈ {-1, 0, 1} as
+    # -((d - cπ) + π Σ_k w_k (2k + c)) / t so no two large terms cancel.
+    c = torch.where(d < -0.5 * math.pi, -1.0, torch.where(d > 0.5 * math.pi, 1.0, 0.0)).to(d.dtype)
+    score = -(_plus_k_pi(d, -c) + math.pi * (w * (2 * k + c.unsqueeze(-1))).sum(-1)) / t
     return logp, score
 
 
