@@ -12,7 +12,7 @@ accuracy; one training loop and one set of samplers serve every space.
 
 from heatwalk.errors import InputError
 from heatwalk import spaces
-from heatwalk.fit import fit
+from heatwalk.training import fit
 from heatwalk.model import Model, load
 
 __all__ = ["InputError", "spaces", "fit", "Model", "load"]

@@ -46,7 +46,8 @@ def fit(space: Space, data, *, steps: int = 3000, batch_size: int = 512, lr: flo
     ----------
     space : the state space; ``data`` is validated by ``space.validate``.
     steps, batch_size, lr : Adam steps, batch size, learning rate (cosine-decayed to lr/10).
-    ema_decay : decay of the exponential moving average whose weights the model keeps.
+    ema_decay : decay of the exponential moving average whose weights the model keeps
+        (warmed up as min(ema_decay, (1+k)/(10+k)) at step k).
     seed : seeds network initialisation, batches and diffusion noise.
     network : options of the objective's default network (e.g. ``{"hidden": 256, "depth": 3}``).
     time_range : (t_min, t_max) overriding the space's default.
@@ -105,7 +106,10 @@ def fit(space: Space, data, *, steps: int = 3000, batch_size: int = 512, lr: flo
         opt.step()
         sched.step()
         with torch.no_grad():
-            torch._foreach_lerp_(ema, [p.detach() for p in params], 1.0 - ema_decay)
+            # warm-up of the EMA decay, min(decay, (1+k)/(10+k)) (common practice): without it a short run
+            # keeps a share decay^steps of the random initial weights in the average
+            decay = min(ema_decay, (1.0 + step) / (10.0 + step))
+            torch._foreach_lerp_(ema, [p.detach() for p in params], 1.0 - decay)
         value = float(loss.detach())
         if not math.isfinite(value):
             raise FloatingPointError(f"training loss became {value} at step {step + 1}; lower the learning rate")

@@ -1,0 +1,112 @@
+"""The heatwalk command line: demo, fit -> sample round trip, and bad input (exit 2, one line, nothing written)."""
+
+import csv
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from heatwalk.cli import main
+
+
+def run(args, capsys):
+    code = main(args)
+    out = capsys.readouterr()
+    return code, out.out, out.err
+
+
+@pytest.fixture()
+def angles_csv(tmp_path):
+    rng = np.random.default_rng(0)
+    x = np.stack([rng.vonmises(1.0, 5.0, 300), rng.vonmises(-2.0, 3.0, 300)], 1)
+    p = tmp_path / "angles.csv"
+    with open(p, "w") as f:
+        f.write("phi,psi\n")
+        for r in x:
+            f.write(f"{r[0]},{r[1]}\n")
+    return p
+
+
+def test_fit_then_sample_roundtrip(tmp_path, angles_csv, capsys):
+    model = tmp_path / "model"
+    code, out, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--steps", "30",
+                          "--batch-size", "64", "--hidden", "32", "--quiet"], capsys)
+    assert code == 0, err
+    assert (model / "model.json").is_file() and (model / "weights.pt").is_file()
+    samples = tmp_path / "s.csv"
+    code, out, err = run(["sample", str(model), "--n", "40", "--out", str(samples), "--steps", "20", "--quiet"],
+                         capsys)
+    assert code == 0, err
+    rows = list(csv.reader(open(samples)))
+    assert rows[0] == ["angle0", "angle1"] and len(rows) == 41
+    vals = np.array(rows[1:], dtype=float)
+    assert np.all((vals >= -math.pi) & (vals < math.pi))
+    # degrees on the way out
+    code, _, err = run(["sample", str(model), "--n", "5", "--out", str(tmp_path / "d.csv"), "--steps", "5",
+                        "--degrees", "--quiet"], capsys)
+    assert code == 0, err
+    vals = np.array(list(csv.reader(open(tmp_path / "d.csv")))[1:], dtype=float)
+    assert np.all(np.abs(vals) <= 180)
+    # an existing model folder is never overwritten silently
+    code, _, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--steps", "2",
+                        "--quiet"], capsys)
+    assert code == 2 and "already exists" in err
+
+
+@pytest.mark.parametrize("content, message", [
+    ("phi,psi\n0.1,0.2\n0.3,abc\n", r"line 3, column 2 \(psi\): 'abc' is not a number"),
+    ("0.1,0.2\nnan,0.2\n", r"line 2, column 1: value 'nan' is not finite"),
+    ("0.1,0.2\n0.5,inf\n", r"line 2, column 2: value 'inf' is not finite"),
+    ("0.1,0.2\n0.3,0.4,0.5\n", r"line 2: 3 columns, but the first row has 2"),
+    ("", r"no data rows"),
+    ("phi,psi\n", r"no data rows"),
+    ("0.1,0.2\n0.3,0.4\n120.0,45.0\n", r"line 3: row 2, column 0: angle 120 is outside .*degrees"),
+])
+def test_bad_input_exit_2_and_nothing_written(tmp_path, capsys, content, message):
+    import re
+
+    p = tmp_path / "bad.csv"
+    p.write_text(content)
+    out = tmp_path / "model"
+    code, stdout, err = run(["fit", str(p), "--space", "torus", "--out", str(out), "--steps", "2", "--quiet"],
+                            capsys)
+    assert code == 2
+    assert err.startswith("heatwalk: error: ") and err.count("\n") == 1 and "Traceback" not in err
+    assert re.search(message, err), err
+    assert str(p) in err
+    assert not out.exists() and sorted(x.name for x in tmp_path.iterdir()) == ["bad.csv"]
+
+
+def test_degrees_flag_reads_degrees(tmp_path, capsys):
+    p = tmp_path / "deg.csv"
+    p.write_text("10,20\n-170,179\n30,-60\n")
+    code, _, err = run(["fit", str(p), "--space", "torus", "--degrees", "--out", str(tmp_path / "m"),
+                        "--steps", "2", "--hidden", "8", "--quiet"], capsys)
+    assert code == 0, err
+    import json
+
+    rec = json.loads((tmp_path / "m" / "model.json").read_text())["record"]
+    assert rec["reading_options"] == {"degrees": True}
+
+
+def test_unknown_space_and_missing_file(tmp_path, capsys):
+    code, _, err = run(["fit", str(tmp_path / "none.csv"), "--space", "torus", "--out", str(tmp_path / "m")],
+                       capsys)
+    assert code == 2 and "no such file" in err
+    p = tmp_path / "a.csv"
+    p.write_text("0.1,0.2\n")
+    code, _, err = run(["fit", str(p), "--space", "klein_bottle", "--out", str(tmp_path / "m")], capsys)
+    assert code == 2 and "unknown space 'klein_bottle'" in err
+
+
+def test_demo_runs_as_a_command(tmp_path):
+    # the installed console script, as a user would run it (short training to keep the suite fast)
+    r = subprocess.run([sys.executable, "-m", "heatwalk.cli", "demo", "--out", str(tmp_path / "demo"),
+                        "--steps", "150", "--sample-steps", "40", "--quiet"], capture_output=True, text=True,
+                       timeout=600)
+    assert r.returncode == 0, r.stderr
+    for name in ("samples.csv", "torsions.png", "report.json", "lanternfold_torsions.csv"):
+        assert (tmp_path / "demo" / name).is_file()
+    assert "MMD^2" in r.stdout
