@@ -83,6 +83,18 @@ class Model:
         with torch.no_grad():
             return fn(self.network, self.space.validate(x), generator, n_time_samples, **options)
 
+    def log_prob(self, x, **options) -> dict:
+        """Log-likelihood of points ``x`` in nats, w.r.t. the space's reference measure.
+
+        For score models: the probability-flow ODE (exact up to solver tolerance); for discrete
+        models: the negative ELBO, an upper bound on -log p, flagged by ``bound = True``.
+        ``options`` go to the objective (e.g. ``method``, ``rtol``, ``divergence``, ``n_probes``).
+        """
+        fn = getattr(self.objective, "log_prob", None)
+        if fn is None:
+            raise InputError(f"objective {type(self.objective).__name__} offers no log-likelihood")
+        return fn(self.network, x, **options)
+
     # ----- persistence ---------------------------------------------------------------------
     def config(self) -> dict:
         return {

@@ -87,6 +87,19 @@ class ScoreMatching:
         diff = self.scaled_score(net, xt, t) - target
         return self.space.inner(xt, diff, diff).mean() / self.space.dim
 
+    def log_prob(self, net: nn.Module, x, **options) -> dict:
+        """Exact log-likelihood (nats, reference measure of the space) by the probability-flow ODE.
+
+        Returns the dict of :func:`heatwalk.samplers.probability_flow.log_likelihood`, with
+        ``bound = False`` (an ODE log-likelihood, not a bound).
+        """
+        from heatwalk.samplers.probability_flow import log_likelihood
+
+        with torch.no_grad():
+            out = log_likelihood(self.field(net), x, **options)
+        out["bound"] = False
+        return out
+
     def field(self, net: nn.Module) -> ScoreField:
         def score_fn(x, t):
             sqrt_t = t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))

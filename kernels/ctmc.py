@@ -16,9 +16,12 @@ evaluating it, chosen once when the chain is built:
 - any other valid Q: if Q is reversible with respect to a strictly positive
   stationary law π (π_i Q_ij = π_j Q_ji), the symmetric matrix
   S = D^{1/2} Q D^{-1/2} (D = diag π) is diagonalised once, S = U Λ Uᵀ, and
-  P(τ) = D^{-1/2} U e^{τΛ} Uᵀ D^{1/2}  (``"eigen"``); otherwise
-  ``scipy.linalg.expm`` is called (``"expm"``), with results for repeated
-  times (sampling grids) cached.
+  P(τ) = D^{-1/2} U e^{τΛ} Uᵀ D^{1/2}  (``"eigen"``); otherwise the matrix
+  exponential is computed by Padé scaling and squaring (``"expm"``;
+  ``torch.linalg.matrix_exp``, batched over τ — the same algorithm as
+  ``scipy.linalg.expm``, against which and mpmath it is tested), with results
+  for repeated times (sampling grids) cached and the last batch remembered
+  (one training step asks for the same times several times).
 
 τ = inf is allowed and gives the limit 1 πᵀ. Everything is float64 torch.
 """
@@ -189,6 +192,14 @@ class CTMC:
         return self._transition_expm(tau)
 
     def _transition_expm(self, tau: torch.Tensor) -> torch.Tensor:
+        last = getattr(self, "_last", None)
+        if last is not None and last[0].shape == tau.shape and torch.equal(last[0], tau):
+            return last[1]
+        out = self._transition_expm_uncached(tau)
+        self._last = (tau.clone(), out)
+        return out
+
+    def _transition_expm_uncached(self, tau: torch.Tensor) -> torch.Tensor:
         flat = tau.reshape(-1)
         uniq, inverse = torch.unique(flat, return_inverse=True)
         use_cache = uniq.numel() <= CACHE_MAX_BATCH
@@ -201,13 +212,13 @@ class CTMC:
             else:
                 todo.append(k)
         if todo:
-            vals = uniq[todo].numpy()
-            finite = np.isfinite(vals)
-            out = np.empty((len(todo), self.n_states, self.n_states))
-            if finite.any():
-                out[finite] = scipy.linalg.expm(vals[finite][:, None, None] * self.rates.numpy()[None])
-            out[~finite] = np.broadcast_to(self.stationary.numpy(), (self.n_states, self.n_states))
-            out = torch.tensor(np.clip(out, 0.0, None), dtype=DTYPE)
+            vals = uniq[todo]
+            finite = torch.isfinite(vals)
+            out = torch.empty(len(todo), self.n_states, self.n_states, dtype=DTYPE)
+            if bool(finite.any()):
+                out[finite] = torch.linalg.matrix_exp(vals[finite][:, None, None] * self.rates)
+            out[~finite] = self.stationary.expand(self.n_states, self.n_states)
+            out = out.clamp_min(0.0)  # rounding can leave -1e-17 where the exact value is 0
             for j, k in enumerate(todo):
                 mats[k] = out[j]
                 if use_cache:

@@ -158,7 +158,7 @@ class Simplex(Space):
         return {"kind": "simplex", "K": self.K}
 
     # --- file rows -------------------------------------------------------------------------
-    def from_rows(self, rows, *, zero_replacement: float | None = None, amounts: bool = False) -> torch.Tensor:
+    def from_rows(self, rows, *, zero_replacement: float | None = None, rescale: bool = False) -> torch.Tensor:
         """Read compositions from an (n, K) float array.
 
         Parameters
@@ -173,9 +173,10 @@ class Simplex(Space):
             ratios between the non-zero parts are kept. δ must be smaller than
             every non-zero part of the rows it is applied to (the paper's
             setting: δ below the detection limit) and k δ < 1.
-        amounts : if True, rows are non-negative amounts in any unit (e.g.
-            money); each row is divided by its total (which must be > 0)
-            instead of being required to sum to 1.
+        rescale : if True, each row is divided by its total (which must be
+            > 0) instead of being required to sum to 1 within 1e-6: for rows
+            of amounts (money, counts), percentages, or shares rounded so
+            that they do not add up to 1. Applied before zero replacement.
 
         Raises :class:`InputError` naming the row (and column) of the first problem.
         """
@@ -189,12 +190,12 @@ class Simplex(Space):
                                  f"needs δ < 1/K = {1 / self.K:g}", field="zero_replacement")
         x = as_points(rows, self.ambient_shape, "compositions")
         self._check_nonnegative(x)
-        if amounts:
+        if rescale:
             total = x.sum(-1)
             i = first_bad_row(total <= 0)
             if i is not None:
-                raise InputError(f"row {i}: amounts add up to {float(total[i]):g}; a composition needs a positive "
-                                 f"total", row=i)
+                raise InputError(f"row {i}: parts add up to {float(total[i]):g}; rescaling needs a positive total",
+                                 row=i)
             x = x / total.unsqueeze(-1)
         else:
             self._check_sums(x)
@@ -245,8 +246,8 @@ class Simplex(Space):
         i = first_bad_row((s - 1).abs() > SUM_TOLERANCE)
         if i is not None:
             raise InputError(f"row {i}: parts sum to {float(s[i]):.9g}, not 1 (tolerance {SUM_TOLERANCE:g}); "
-                             f"rows of amounts rather than shares can be read with the amounts option of "
-                             f"Simplex.from_rows", row=i)
+                             f"rows of amounts, percentages or rounded shares can be read with the rescale "
+                             f"option of Simplex.from_rows", row=i)
 
     @staticmethod
     def _raise_zero(x: torch.Tensor, i: int) -> None:
@@ -314,6 +315,28 @@ class Simplex(Space):
 
     def ilr_inverse(self, y):
         return ilr_inverse(y)
+
+    def plot_coordinates(self, x):
+        """2-D picture coordinates for :func:`heatwalk.plots.plot_data_and_samples`.
+
+        K = 3: the ternary diagram (part0 at the lower-left corner (0, 0), part1
+        at (1, 0), part2 at the top (1/2, sqrt(3)/2)). K > 3: the first two ilr
+        coordinates, with limits from the 0.5 % and 99.5 % quantiles of ``x``.
+        K = 2 has a one-dimensional picture only: None.
+        """
+        import numpy as np
+
+        if self.K == 2:
+            return None
+        if self.K == 3:
+            p = x.numpy()
+            xy = np.stack([p[:, 1] + 0.5 * p[:, 2], (math.sqrt(3) / 2) * p[:, 2]], 1)
+            return xy, ("ternary: part0 (left), part1 (right)", "part2 (top)"), ((0.0, 1.0), (0.0, math.sqrt(3) / 2))
+        y = ilr(x)[:, :2].numpy()
+        lo, hi = np.quantile(y, 0.005, axis=0), np.quantile(y, 0.995, axis=0)
+        pad = 0.1 * (hi - lo)
+        lims = tuple((float(lo[j] - pad[j]), float(hi[j] + pad[j])) for j in range(2))
+        return y, ("ilr coordinate 1", "ilr coordinate 2"), lims
 
     # --- features --------------------------------------------------------------------------
     @property

@@ -190,8 +190,7 @@ def test_exact_sampler_vs_euler_maruyama(K):
     # reference: Euler–Maruyama simulation of dX = f(X) dt + dB in the simplex itself (x <- exp_x(h f + sqrt(h) z),
     # f = -clr(x)/2 from ``drift``), 1000 steps of h = 1e-3 to t = 1 (weak error O(h): 2.5e-4 in the mean factor,
     # far below the standard errors ≈ 0.008). Means and variances of ilr coordinates of 10000 exact and 10000
-    # simulated draws agree
-    # within 5 combined standard errors, and both agree with the closed form e^{-t/2} y0, 1 - e^{-t}.
+    # simulated draws agree within 5 combined standard errors, and both agree with the closed form e^{-t/2} y0, 1 - e^{-t}.
     s = Simplex(K)
     n, t, steps = 10000, 1.0, 1000
     h = t / steps
@@ -284,7 +283,7 @@ def test_validate_errors_name_row_and_column():
     with pytest.raises(InputError, match=r"row 2, column 0: part is exactly 0.*zero_replacement") as e:
         s.validate([[0.2, 0.3, 0.5], [0.2, 0.3, 0.5], [0.0, 0.5, 0.5]])
     assert e.value.row == 2 and e.value.field == "0"
-    with pytest.raises(InputError, match=r"row 0: parts sum to 1.1, not 1 \(tolerance 1e-06\).*amounts"):
+    with pytest.raises(InputError, match=r"row 0: parts sum to 1.1, not 1 \(tolerance 1e-06\).*rescale option"):
         s.validate([[0.2, 0.4, 0.5]])
     with pytest.raises(InputError, match=r"expected shape \(n, 3\)"):
         s.validate([[0.5, 0.5]])
@@ -329,15 +328,15 @@ def test_from_rows_replacement_errors():
         s.from_rows([[0.5, 0.7, 0.0, -0.2]], zero_replacement=1e-3)
 
 
-def test_from_rows_amounts():
+def test_from_rows_rescale():
     s = Simplex(3)
-    x = s.from_rows([[200.0, 300.0, 500.0], [1.0, 1.0, 2.0]], amounts=True)
+    x = s.from_rows([[200.0, 300.0, 500.0], [1.0, 1.0, 2.0]], rescale=True)
     torch.testing.assert_close(x, torch.tensor([[0.2, 0.3, 0.5], [0.25, 0.25, 0.5]], dtype=F64), atol=1e-16, rtol=0)
-    x = s.from_rows([[0.0, 300.0, 700.0]], amounts=True, zero_replacement=1e-4)
+    x = s.from_rows([[0.0, 300.0, 700.0]], rescale=True, zero_replacement=1e-4)
     torch.testing.assert_close(x, torch.tensor([[1e-4, 0.3 * (1 - 1e-4), 0.7 * (1 - 1e-4)]], dtype=F64),
                                atol=1e-16, rtol=0)
-    with pytest.raises(InputError, match=r"row 1: amounts add up to 0"):
-        s.from_rows([[1.0, 2.0, 3.0], [0.0, 0.0, 0.0]], amounts=True)
+    with pytest.raises(InputError, match=r"row 1: parts add up to 0; rescaling needs a positive total"):
+        s.from_rows([[1.0, 2.0, 3.0], [0.0, 0.0, 0.0]], rescale=True)
     with pytest.raises(InputError, match=r"row 0: parts sum to 1000"):
         s.from_rows([[200.0, 300.0, 500.0]])
     with pytest.raises(InputError, match="no writing options"):
