@@ -120,7 +120,7 @@ def plot_body_axes(data: torch.Tensor, samples: torch.Tensor, path: Path) -> Non
 def plot_rotation_vectors(space: SO3, data: torch.Tensor, samples: torch.Tensor, path: Path) -> None:
     import matplotlib.pyplot as plt
 
-    fig, axes = plt.subplots(1, 3, figsize=(13, 4.4))
+    fig, axes = plt.subplots(1, 3, figsize=(13, 4.9))
     dv = space.to_rows(data, format="rotvec").numpy()
     sv = space.to_rows(samples, format="rotvec").numpy()
     for ax, (i, j) in zip(axes, ((0, 1), (0, 2), (1, 2))):

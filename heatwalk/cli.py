@@ -1,8 +1,9 @@
-"""The ``heatwalk`` command line: demo, fit, sample.
+"""The ``heatwalk`` command line: demo, fit, sample, evaluate.
 
     heatwalk demo [--out DIR]
     heatwalk fit DATA.csv --space torus --out MODEL_DIR [--degrees] [--steps N] ...
     heatwalk sample MODEL_DIR --n N --out SAMPLES.csv [--sampler NAME] [--steps N]
+    heatwalk evaluate MODEL_DIR DATA.csv --out REPORT_DIR
 
 Bad input (unreadable or malformed data, wrong options) prints one line
 ``heatwalk: error: ...`` naming the file, line and problem, writes nothing,
@@ -119,6 +120,28 @@ def cmd_sample(args) -> int:
     return 0
 
 
+def cmd_evaluate(args) -> int:
+    import heatwalk
+    from heatwalk.evaluation import evaluate, format_table, write_report
+    from heatwalk.io import read_points
+    from heatwalk.plots import plot_data_and_samples
+
+    model = heatwalk.load(args.model)
+    options = _reading_options(args) or dict(model.record.get("reading_options", {}))
+    reader = getattr(model.space, "read_into", None)
+    x = reader(args.data, **options) if reader is not None else read_points(args.data, model.space, **options)
+    report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.steps, sampler=args.sampler,
+                               likelihood_points=args.likelihood_points, progress=not args.quiet)
+    report["model"] = str(Path(args.model).resolve())
+    report["data_file"] = str(Path(args.data).resolve())
+    j, t = write_report(args.out, report)
+    pic = plot_data_and_samples(model.space, x, samples, Path(args.out) / "data_vs_samples.png",
+                                title="data vs samples")
+    print(format_table(report))
+    print(f"wrote {j}, {t}" + (f", {pic}" if pic else " (no picture for this space)"))
+    return 0
+
+
 def cmd_demo(args) -> int:
     import numpy as np
 
@@ -219,6 +242,18 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--quiet", action="store_true")
     _add_reading_flags(s)
     s.set_defaults(func=cmd_sample)
+    e = sub.add_parser("evaluate", help="report log-likelihood and sample metrics of a model on data")
+    e.add_argument("model", help="model folder written by 'heatwalk fit'")
+    e.add_argument("data", help="data file in the format the model was fitted on")
+    e.add_argument("--out", required=True, help="folder for evaluation.json, evaluation.txt and a picture")
+    e.add_argument("--steps", type=int, default=300, help="reverse steps when sampling")
+    e.add_argument("--sampler", help="sampler name (default: the model's)")
+    e.add_argument("--likelihood-points", type=int, default=500,
+                   help="data points whose log-likelihood is computed (0: skip)")
+    e.add_argument("--seed", type=int, default=0)
+    e.add_argument("--quiet", action="store_true")
+    _add_reading_flags(e)
+    e.set_defaults(func=cmd_evaluate)
     return p
 
 

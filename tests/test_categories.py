@@ -217,7 +217,7 @@ class ExactDenoiser(DiscreteELBO):
         return out.log()
 
 
-@pytest.mark.parametrize("process", ["uniform", "absorbing"])
+@pytest.mark.parametrize("process", ["uniform", "absorbing", "rates"])
 def test_elbo_with_exact_denoiser_equals_nll(process):
     """Campbell et al. 2022 Prop. 2: with the exact reverse rates the bound is tight.
 
@@ -228,7 +228,7 @@ def test_elbo_with_exact_denoiser_equals_nll(process):
     torch.manual_seed(0)
     p_data = torch.rand(len(ALL3), dtype=torch.float64) ** 3
     p_data /= p_data.sum()
-    sp = Categories(K3, L3, process=process)
+    sp = Categories(K3, L3, process=process, rates=cyclic_rates(K3) if process == "rates" else None)
     obj = ExactDenoiser(sp, TimeSchedule(1e-3, 1.0), p_data)
     states = torch.tensor(list(itertools.product(range(sp.n_states), repeat=L3)))
     for i in (0, 5, 26):
