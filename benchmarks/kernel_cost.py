@@ -56,7 +56,7 @@ def cost_rows(n, repeats):
 def accuracy_rows():
     import mpmath as mp
 
-    from heatwalk.kernels.igso3 import igso3_log_prob_and_score
+    from heatwalk.kernels.igso3 import igso3_log_prob_and_dlog as igso3_log_prob_and_score
     from heatwalk.kernels.sphere_heat import sphere_heat_log_prob_and_score
 
     mp.mp.dps = 50

@@ -87,7 +87,7 @@ def read_points(path, space: Space, **options) -> torch.Tensor:
     Errors name the file, the line and the problem.
     """
     rows, _, lines = read_table(path)
-    expected = space.n_columns_for(**options) if hasattr(space, "n_columns_for") else space.n_columns
+    expected = space.n_columns_for(**options)
     if rows.shape[1] != expected:
         raise InputError(f"{path}: {rows.shape[1]} columns per row, but {space!r} with options {options or '{}'} "
                          f"needs {expected}")

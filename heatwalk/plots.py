@@ -22,6 +22,19 @@ def default_plot_coordinates(space, x):
         a = x[:, :2].numpy() if space.n >= 2 else np.stack([x[:, 0].numpy(), np.zeros(x.shape[0])], 1)
         lim = (-math.pi, math.pi)
         return a, ("angle 0 (rad)", "angle 1 (rad)" if space.n >= 2 else ""), (lim, lim)
+    if cfg["kind"] == "sphere" and cfg["d"] == 2:
+        v = x.numpy()
+        lat = np.degrees(np.arcsin(np.clip(v[:, 2], -1, 1)))
+        lon = np.degrees(np.arctan2(v[:, 1], v[:, 0]))
+        return np.stack([lon, lat], 1), ("longitude (deg)", "latitude (deg)"), ((-180, 180), (-90, 90))
+    if cfg["kind"] == "so3":
+        # rotation axis direction as longitude/latitude (the angle is not shown)
+        r = x.numpy()
+        axis = np.stack([r[:, 2, 1] - r[:, 1, 2], r[:, 0, 2] - r[:, 2, 0], r[:, 1, 0] - r[:, 0, 1]], 1)
+        axis /= np.maximum(np.linalg.norm(axis, axis=1, keepdims=True), 1e-12)
+        lat = np.degrees(np.arcsin(np.clip(axis[:, 2], -1, 1)))
+        lon = np.degrees(np.arctan2(axis[:, 1], axis[:, 0]))
+        return np.stack([lon, lat], 1), ("axis longitude (deg)", "axis latitude (deg)"), ((-180, 180), (-90, 90))
     return None
 
 

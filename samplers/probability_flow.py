@@ -24,13 +24,11 @@ in geodesic length, error ~1e-11 relative), so any Runge–Kutta tableau keeps
 its order on the manifold. Two integrators: classical fixed-step RK4, and
 adaptive Dormand–Prince 5(4) with a step size shared by the batch.
 
-Divergence: exact, Σ_i <e_i, ∇_{e_i} v> over an orthonormal tangent basis by
-reverse-mode autograd (dim backward passes), for dim <= ``exact_max_dim``;
-above it, Hutchinson's estimator E_z <z, ∇_z v> with z standard Gaussian
-tangent vectors, ``n_probes`` probes per evaluation (its standard error is
-returned). Both use that the metric is a constant multiple of the ambient
-Euclidean product in the stored coordinates, which holds for every heatwalk
-space (torus, sphere, simplex in clr coordinates: 1; SO(3): 1/2).
+Divergence: exact, Σ_i <e_i, ∇_{e_i} v> over an orthonormal tangent basis,
+each term the derivative of <e_i, v(exp_x(ε e_i))> in ε at 0 by reverse-mode
+autograd (dim backward passes), for dim <= ``exact_max_dim``; above it,
+Hutchinson's estimator E_z <z, ∇_z v> with z standard Gaussian tangent
+vectors, ``n_probes`` probes per evaluation (its standard error is returned).
 """
 
 from __future__ import annotations
@@ -87,32 +85,44 @@ class FlowField:
         return self.space.drift(x, t) - 0.5 * self.field.score(x, t)
 
     def velocity_and_divergence(self, x, t):
-        """v(x, t), div_M v(x, t) and (for Hutchinson) the standard error of the divergence estimate."""
+        """v(x, t), div_M v(x, t) and (for Hutchinson) the standard error of the divergence estimate.
+
+        div_M v(x) = Σ_i <e_i, ∇_{e_i} v> = Σ_i d/dε <e_i, v(exp_x(ε e_i))> at ε = 0, the derivative taken
+        along the geodesic through x with velocity e_i (so it is intrinsic: it does not depend on how
+        points are stored, e.g. compositions on the simplex with tangent vectors in clr coordinates).
+        The frame vectors e_i are held fixed in the stored coordinates, which is exact for the flat
+        spaces and, on embedded ones, differs from parallel transport only by normal components
+        that the inner product with e_i removes.
+        """
         space = self.space
-        with torch.enable_grad():
-            xg = x.detach().requires_grad_(True)
-            v = self.velocity(xg, t)
-            if not v.requires_grad:  # a field that does not depend on x (e.g. zero) has zero divergence
-                zero = torch.zeros(x.shape[0], dtype=torch.float64)
-                return v.detach(), zero, zero
-            if self.divergence == "exact":
-                dirs = space.tangent_basis(x).detach()
-                dirs = [dirs[:, i] for i in range(space.dim)]
-            else:
-                dirs = [space.random_tangent(x, self.generator).detach() for _ in range(self.n_probes)]
-            terms = []
-            for k, e in enumerate(dirs):
-                s = space.inner(x, e, v).sum()
-                (g,) = torch.autograd.grad(s, xg, retain_graph=k < len(dirs) - 1)
-                ev = len(space.ambient_shape)
-                # g = J^T (c e) for the metric c · Euclidean, so <g, e>_Euclid = c e^T J e = <e, ∇_e v>_metric
-                terms.append((g * e).flatten(start_dim=g.dim() - ev).sum(-1))
-            terms = torch.stack(terms, dim=0)
+        n = x.shape[0]
+        x = x.detach()
+        with torch.no_grad():
+            v0 = self.velocity(x, t)
         if self.divergence == "exact":
-            return v.detach(), terms.sum(0), torch.zeros_like(terms[0])
+            basis = space.tangent_basis(x).detach()
+            dirs = [basis[:, i] for i in range(space.dim)]
+        else:
+            dirs = [space.random_tangent(x, self.generator).detach() for _ in range(self.n_probes)]
+        terms = []
+        with torch.enable_grad():
+            for e in dirs:
+                eps = torch.zeros(n, dtype=torch.float64, requires_grad=True)
+                y = space.exp(x, eps.reshape(_bshape(space, n)) * e)
+                v = self.velocity(y, t)
+                if not v.requires_grad:  # a field that does not depend on x (e.g. zero) has zero divergence
+                    terms.append(torch.zeros(n, dtype=torch.float64))
+                    continue
+                (g,) = torch.autograd.grad(space.inner(x, e, v).sum(), eps)
+                terms.append(g)
+        terms = torch.stack(terms, dim=0)
+        if not bool(torch.isfinite(terms).all()):
+            raise FloatingPointError("non-finite divergence: the velocity field is not differentiable here")
+        if self.divergence == "exact":
+            return v0, terms.sum(0), torch.zeros(n, dtype=torch.float64)
         div = terms.mean(0)
         se = terms.std(0) / math.sqrt(len(dirs)) if len(dirs) > 1 else torch.full_like(div, float("nan"))
-        return v.detach(), div, se
+        return v0, div, se
 
 
 def _chart_velocity(space, x_base, y, w):

@@ -13,12 +13,14 @@ from heatwalk.spaces.sphere import Sphere
 from heatwalk.spaces.so3 import SO3
 from heatwalk.spaces.simplex import Simplex
 from heatwalk.spaces.categories import Categories
+from heatwalk.spaces.euclidean import Euclidean
 
 SPACE_KINDS: dict[str, type] = {"torus": Torus}
 SPACE_KINDS["sphere"] = Sphere
 SPACE_KINDS["so3"] = SO3
 SPACE_KINDS["simplex"] = Simplex
 SPACE_KINDS["categories"] = Categories
+SPACE_KINDS["euclidean"] = Euclidean
 
 __all__ = ["Space", "Torus", "Sphere", "SPACE_KINDS", "from_config", "register"]
 

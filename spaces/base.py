@@ -100,6 +100,10 @@ class Space(ABC):
         """Number of numeric columns one point takes in a CSV file (default format)."""
         return math.prod(self.ambient_shape)
 
+    def n_columns_for(self, **options) -> int:
+        """Number of columns one point takes in a file written with these reading options."""
+        return len(self.column_names(**options))
+
     def from_rows(self, rows, **options) -> torch.Tensor:
         """Turn an (n, n_columns) float array read from a file into validated points.
 
