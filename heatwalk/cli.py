@@ -39,6 +39,8 @@ def _reading_options(args) -> dict:
         opts["order"] = args.quaternion_order
     if getattr(args, "zero_replacement", None) is not None:
         opts["zero_replacement"] = args.zero_replacement
+    if getattr(args, "rescale", False):
+        opts["rescale"] = True
     return opts
 
 
@@ -198,6 +200,8 @@ def _add_reading_flags(p):
                    help="so3 with quaternions: the component order (required: there is no default)")
     g.add_argument("--zero-replacement", type=float, metavar="DELTA",
                    help="simplex: replace zero parts by DELTA (multiplicative replacement)")
+    g.add_argument("--rescale", action="store_true",
+                   help="simplex: divide each row by its total (amounts, percentages, rounded shares)")
 
 
 def build_parser() -> argparse.ArgumentParser:

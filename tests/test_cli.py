@@ -110,3 +110,61 @@ def test_demo_runs_as_a_command(tmp_path):
     for name in ("samples.csv", "torsions.png", "report.json", "lanternfold_torsions.csv"):
         assert (tmp_path / "demo" / name).is_file()
     assert "MMD^2" in r.stdout
+
+
+BAD_MANIFOLD_FILES = [
+    # (space, extra flags, file content, expected message)
+    ("sphere", [], "0,0,1\n0,0.5,0.5\n", r"line 2: .*norm"),
+    ("sphere", [], "0,0,1\n0,0,0\n", r"line 2: .*(zero|norm)"),
+    ("sphere", ["--lonlat"], "10,20\n95,20\n", r"line 2: .*latitude 95"),
+    ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0,0,0,1,0,0,0,-1\n", r"line 2: .*(reflection|det)"),
+    ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0.2,0,0,1,0,0,0,1\n", r"line 2: .*not a rotation matrix"),
+    ("so3", ["--rotation-format", "quaternion", "--quaternion-order", "wxyz"], "1,0,0,0\n0,0,0,0\n",
+     r"line 2: .*zero"),
+    ("so3", ["--rotation-format", "quaternion"], "1,0,0,0\n", r"order must be stated"),
+    ("so3", [], "1,0,0\n", r"3 columns per row.*needs 9"),
+    ("simplex", [], "0.2,0.3,0.5\n0.2,-0.1,0.9\n", r"line 2: .*negative"),
+    ("simplex", [], "0.2,0.3,0.5\n0.2,0.3,0.4\n", r"line 2: .*sum"),
+    ("simplex", [], "0.2,0.3,0.5\n0.0,0.5,0.5\n", r"line 2: .*zero.*replacement"),
+    ("simplex", [], "1.0\n1.0\n", r"K"),
+]
+
+
+@pytest.mark.parametrize("space, flags, content, message", BAD_MANIFOLD_FILES)
+def test_bad_points_on_other_spaces(tmp_path, capsys, space, flags, content, message):
+    import re
+
+    p = tmp_path / "bad.csv"
+    p.write_text(content)
+    out = tmp_path / "model"
+    code, _, err = run(["fit", str(p), "--space", space, *flags, "--out", str(out), "--steps", "2", "--quiet"],
+                       capsys)
+    assert code == 2, err
+    assert err.startswith("heatwalk: error: ") and err.count("\n") == 1 and "Traceback" not in err
+    assert re.search(message, err, flags=re.IGNORECASE), err
+    assert not out.exists() and sorted(x.name for x in tmp_path.iterdir()) == ["bad.csv"]
+
+
+def test_fit_sample_evaluate_on_the_sphere_with_latlon(tmp_path, capsys):
+    rng = np.random.default_rng(1)
+    lat = np.clip(40 + 10 * rng.standard_normal(200), -89, 89)
+    lon = -30 + 20 * rng.standard_normal(200)
+    p = tmp_path / "pts.csv"
+    p.write_text("lat,lon\n" + "".join(f"{a},{b}\n" for a, b in zip(lat, lon)))
+    code, _, err = run(["fit", str(p), "--space", "sphere", "--lonlat", "--out", str(tmp_path / "m"),
+                        "--steps", "20", "--hidden", "16", "--quiet"], capsys)
+    assert code == 0, err
+    code, _, err = run(["sample", str(tmp_path / "m"), "--n", "10", "--out", str(tmp_path / "s.csv"),
+                        "--steps", "10", "--quiet"], capsys)
+    assert code == 0, err
+    rows = list(csv.reader(open(tmp_path / "s.csv")))
+    assert rows[0] == ["latitude_deg", "longitude_deg"] and len(rows) == 11
+    code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--steps", "10",
+                          "--likelihood-points", "5", "--quiet"], capsys)
+    assert code == 0, err
+    import json
+
+    rep = json.loads((tmp_path / "ev" / "evaluation.json").read_text())
+    assert rep["log_likelihood"]["n"] == 5 and not rep["log_likelihood"]["is_bound"]
+    assert math.isfinite(rep["log_likelihood"]["mean_nats"]) and rep["mmd2"]["n"] == 100
+    assert (tmp_path / "ev" / "data_vs_samples.png").is_file() and "MMD^2" in out
