@@ -62,19 +62,54 @@ def space_for_table(kind: str, n_columns: int, options: dict):
     raise InputError(f"space {kind!r} is not read from CSV tables", field="space")
 
 
+def _sequence_options(args) -> dict:
+    opts = {"format": getattr(args, "sequence_format", None) or "auto"}
+    if getattr(args, "alphabet", None):
+        opts["alphabet"] = args.alphabet
+    if getattr(args, "length", None):
+        opts["length"] = args.length
+    if getattr(args, "uppercase", False):
+        opts["uppercase"] = True
+    return opts
+
+
 def _read_for_fit(args):
+    """(points, space, reading options) for the data file of ``heatwalk fit``."""
     from heatwalk.io import read_points, read_table
 
-    options = _reading_options(args)
-    path = Path(args.data)
-    from heatwalk.spaces import SPACE_KINDS
+    if args.space == "categories":  # FASTA or one-sequence-per-line text
+        from heatwalk.sequences import read_sequences
 
-    reader = getattr(SPACE_KINDS.get(args.space), "read_file", None)
-    if reader is not None:  # spaces with their own file formats (sequences)
-        return reader(path, **options), options
-    rows, _, _ = read_table(path)
+        opts = _sequence_options(args)
+        seqs = read_sequences(args.data, **opts)
+        return seqs.codes, seqs.space(process=args.process), opts
+    options = _reading_options(args)
+    rows, _, _ = read_table(args.data)
     space = space_for_table(args.space, rows.shape[1], options)
-    return read_points(path, space, **options), space, options
+    return read_points(args.data, space, **options), space, options
+
+
+def _read_with_space(path, space, options):
+    """Points of a data file on a known space (a fitted model's), with the model's reading options."""
+    from heatwalk.io import read_points
+
+    if space.config()["kind"] == "categories":
+        from heatwalk.sequences import read_sequences
+
+        opts = {k: v for k, v in options.items() if k in ("format", "uppercase")}
+        return read_sequences(path, alphabet=space.alphabet, length=space.L, **opts).codes
+    return read_points(path, space, **options)
+
+
+def _write_samples(path, space, x, options, overwrite):
+    from heatwalk.io import write_points
+
+    if space.config()["kind"] == "categories":
+        from heatwalk.sequences import write_sequences
+
+        fmt = "text" if str(path).endswith((".txt", ".text")) else "fasta"
+        return write_sequences(path, x, space.alphabet, format=fmt, overwrite=True)
+    return write_points(path, space, x, **options)
 
 
 # ----- commands ----------------------------------------------------------------------------------
@@ -84,12 +119,8 @@ def cmd_fit(args) -> int:
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise InputError(f"{out} already exists (pass --overwrite to replace it)", field="out")
-    got = _read_for_fit(args)
-    if len(got) == 2:
-        (space, x), options = got
-    else:
-        x, space, options = got
-    network = {"hidden": args.hidden, "depth": args.depth}
+    x, space, options = _read_for_fit(args)
+    network = {k: v for k, v in (("hidden", args.hidden), ("depth", args.depth)) if v is not None}
     model = heatwalk.fit(space, x, steps=args.steps, batch_size=args.batch_size, lr=args.learning_rate,
                          seed=args.seed, network=network, progress=not args.quiet,
                          checkpoint_dir=args.checkpoints, checkpoint_every=args.checkpoint_every,
@@ -104,7 +135,6 @@ def cmd_fit(args) -> int:
 
 def cmd_sample(args) -> int:
     import heatwalk
-    from heatwalk.io import write_points
 
     model = heatwalk.load(args.model)
     out = Path(args.out)
@@ -113,11 +143,9 @@ def cmd_sample(args) -> int:
     options = _reading_options(args) or dict(model.record.get("reading_options", {}))
     t0 = time.perf_counter()
     x = model.sample(args.n, steps=args.steps, sampler=args.sampler, seed=args.seed, progress=not args.quiet)
-    writer = getattr(model.space, "write_file", None)
-    if writer is not None:
-        writer(out, x, **options)
-    else:
-        write_points(out, model.space, x, **options)
+    if model.space.config()["kind"] == "categories":
+        options = {}
+    _write_samples(out, model.space, x, options, args.overwrite)
     print(f"wrote {args.n} samples to {out} in {time.perf_counter() - t0:.1f} s")
     return 0
 
@@ -125,13 +153,11 @@ def cmd_sample(args) -> int:
 def cmd_evaluate(args) -> int:
     import heatwalk
     from heatwalk.evaluation import evaluate, format_table, write_report
-    from heatwalk.io import read_points
     from heatwalk.plots import plot_data_and_samples
 
     model = heatwalk.load(args.model)
     options = _reading_options(args) or dict(model.record.get("reading_options", {}))
-    reader = getattr(model.space, "read_into", None)
-    x = reader(args.data, **options) if reader is not None else read_points(args.data, model.space, **options)
+    x = _read_with_space(args.data, model.space, options)
     report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.steps, sampler=args.sampler,
                                likelihood_points=args.likelihood_points, progress=not args.quiet)
     report["model"] = str(Path(args.model).resolve())
@@ -202,6 +228,12 @@ def _add_reading_flags(p):
                    help="simplex: replace zero parts by DELTA (multiplicative replacement)")
     g.add_argument("--rescale", action="store_true",
                    help="simplex: divide each row by its total (amounts, percentages, rounded shares)")
+    q = p.add_argument_group("reading sequences (space categories)")
+    q.add_argument("--sequence-format", choices=["auto", "fasta", "text"],
+                   help="FASTA or one sequence per line (default: auto)")
+    q.add_argument("--alphabet", help="the states as a string of symbols (default: those that occur)")
+    q.add_argument("--length", type=int, help="required sequence length (default: the first record's)")
+    q.add_argument("--uppercase", action="store_true", help="fold symbols to upper case")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -218,15 +250,17 @@ def build_parser() -> argparse.ArgumentParser:
     d.set_defaults(func=cmd_demo)
 
     f = sub.add_parser("fit", help="fit a model to a data file")
-    f.add_argument("data", help="CSV of points (one per line), or FASTA / text for sequences")
+    f.add_argument("data", help="CSV of points (one per line), or FASTA / text of sequences")
     f.add_argument("--space", required=True, help="torus, sphere, so3, simplex, categories")
+    f.add_argument("--process", choices=["absorbing", "uniform"], default="absorbing",
+                   help="categories: the forward chain (default absorbing: masking)")
     f.add_argument("--out", required=True, help="model folder to write")
     f.add_argument("--overwrite", action="store_true", help="replace an existing model folder")
     f.add_argument("--steps", type=int, default=3000)
     f.add_argument("--batch-size", type=int, default=512)
     f.add_argument("--learning-rate", type=float, default=2e-3)
-    f.add_argument("--hidden", type=int, default=256, help="network width")
-    f.add_argument("--depth", type=int, default=3, help="network hidden layers")
+    f.add_argument("--hidden", type=int, help="network width (default: the objective's, 256 for manifolds)")
+    f.add_argument("--depth", type=int, help="network depth (hidden layers; transformer layers for sequences)")
     f.add_argument("--seed", type=int, default=0)
     f.add_argument("--checkpoints", help="folder for periodic training checkpoints")
     f.add_argument("--checkpoint-every", type=int, default=1000)

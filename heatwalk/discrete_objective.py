@@ -146,11 +146,18 @@ class DiscreteELBO:
         """A transformer over positions for L > 1 (d_model 64, 2 layers, 4 heads), an MLP for L = 1.
 
         ``architecture`` ("transformer" or "mlp") overrides the choice; other options go to the
-        network (transformer: d_model, n_layers, n_heads; mlp: hidden, depth).
+        network (transformer: d_model, n_layers, n_heads, with ``hidden`` and ``depth`` accepted as
+        d_model and n_layers; mlp: hidden, depth).
         """
         sp = self.space
         arch = architecture or ("mlp" if sp.L == 1 else "transformer")
         if arch == "transformer":
+            # the library-wide width / depth names map onto the transformer's
+            for general, specific in (("hidden", "d_model"), ("depth", "n_layers")):
+                if general in options:
+                    if specific in options:
+                        raise InputError(f"give either {general!r} or {specific!r}, not both", field="network")
+                    options[specific] = options.pop(general)
             allowed, defaults = {"d_model", "n_layers", "n_heads"}, dict(d_model=64, n_layers=2, n_heads=4)
         elif arch == "mlp":
             allowed, defaults = {"hidden", "depth"}, dict(hidden=128, depth=3)

@@ -9,6 +9,7 @@ model draws |B| samples. Reported:
 - MMD² (Gaussian kernel in geodesic distance, median-heuristic bandwidth on A)
   of samples vs A, and its noise floor: MMD² of B vs A (same sizes);
 - on a torus, the circular Wasserstein-1 distance per angle (samples vs A, and B vs A as floor);
+- for sequences, the total-variation distance of k-mer spectra (k = 1, 2, 3; B vs A as floor);
 - counts, seeds and timings.
 """
 
@@ -23,7 +24,7 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.files import atomic_path
-from heatwalk.metrics import circular_wasserstein, mean_log_likelihood, mmd_with_floor
+from heatwalk.metrics import circular_wasserstein, kmer_spectrum_distance, mean_log_likelihood, mmd_with_floor
 
 
 def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 300, sampler: str | None = None,
@@ -53,6 +54,11 @@ def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 30
     if space.config()["kind"] == "torus":
         report["wasserstein1_per_angle_rad"] = {"model_vs_a": circular_wasserstein(samples, half_a),
                                                 "noise_floor_b_vs_a": circular_wasserstein(half_b, half_a)}
+    if space.config()["kind"] == "categories":
+        ks = [k for k in (1, 2, 3) if k <= space.L]
+        report["kmer_tv_distance"] = {
+            str(k): {"model_vs_a": kmer_spectrum_distance(samples, half_a, space.K, k),
+                     "noise_floor_b_vs_a": kmer_spectrum_distance(half_b, half_a, space.K, k)} for k in ks}
     report["timings_s"]["metrics"] = time.perf_counter() - t0
 
     if likelihood_points > 0:
@@ -89,6 +95,8 @@ def format_table(report: dict) -> str:
         w = report["wasserstein1_per_angle_rad"]
         lines.append("  W1 per angle (rad): samples vs A " + ", ".join(f"{v:.4f}" for v in w["model_vs_a"])
                      + "   floor " + ", ".join(f"{v:.4f}" for v in w["noise_floor_b_vs_a"]))
+    for k, v in report.get("kmer_tv_distance", {}).items():
+        lines.append(f"  {k}-mer spectrum TV distance: samples vs A {v['model_vs_a']:.4f}   floor {v['noise_floor_b_vs_a']:.4f}")
     lines.append("  timings (s): " + ", ".join(f"{k} {v:.1f}" for k, v in report["timings_s"].items()))
     return "\n".join(lines)
 

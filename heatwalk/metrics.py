@@ -11,6 +11,8 @@
   samples of the same size.
 - :func:`circular_wasserstein` — 1-D Wasserstein-1 distance per angle on the
   circle (POT's ``wasserstein_circle``), in radians.
+- :func:`kmer_spectrum_distance` — total-variation distance between the k-mer
+  frequency spectra of two sets of sequences (k = 1, 2, 3 by default).
 - :func:`mean_log_likelihood` — held-out mean log-likelihood in nats.
 """
 
@@ -99,3 +101,23 @@ def mean_log_likelihood(log_probs: torch.Tensor) -> dict:
     """Mean and standard error of held-out log-likelihoods (nats per point)."""
     lp = torch.as_tensor(log_probs, dtype=torch.float64)
     return {"mean": float(lp.mean()), "stderr": float(lp.std() / math.sqrt(lp.numel())), "n": int(lp.numel())}
+
+
+def kmer_spectrum_distance(x: torch.Tensor, y: torch.Tensor, n_states: int, k: int) -> float:
+    """Total-variation distance (1/2) Σ |f_x(w) - f_y(w)| between k-mer frequencies of two sequence sets.
+
+    ``x``, ``y``: int64 (n, L) codes in [0, n_states); k-mers are counted at every offset of every sequence.
+    """
+    if x.dim() != 2 or y.dim() != 2 or x.shape[1] != y.shape[1]:
+        raise InputError(f"expected two (n, L) code tables, got {tuple(x.shape)} and {tuple(y.shape)}")
+    if not 1 <= k <= x.shape[1]:
+        raise InputError(f"k must be in [1, L={x.shape[1]}], got {k}", field="k")
+
+    def spectrum(z):
+        idx = torch.zeros(z.shape[0], z.shape[1] - k + 1, dtype=torch.int64)
+        for j in range(k):
+            idx = idx * n_states + z[:, j:z.shape[1] - k + 1 + j]
+        counts = torch.bincount(idx.reshape(-1), minlength=n_states**k).double()
+        return counts / counts.sum()
+
+    return float(0.5 * (spectrum(x) - spectrum(y)).abs().sum())

@@ -105,18 +105,39 @@ def wrapped_normal_log_prob_and_score(d: torch.Tensor, t: torch.Tensor) -> tuple
     d, t = torch.broadcast_tensors(d, t)
     shape = d.shape
     d, t = d.reshape(-1), t.reshape(-1)
-    # number of images / modes each point needs (see TAIL_EXPONENT); points are grouped by it
-    n_img = torch.ceil((torch.sqrt(2 * TAIL_EXPONENT * t) / math.pi + 1) / 2).clamp(1, N_IMAGES)
-    n_mod = torch.ceil(torch.sqrt(2 * TAIL_EXPONENT / t)).clamp(1, N_MODES)
-    group = torch.where(t <= SWITCH_TIME, n_img, -n_mod).to(torch.int64)
+    # one pass assigns each point to the cheapest exact group (see _GROUPS), then each group is evaluated
+    bucket = torch.bucketize(t, _GROUP_BOUNDS.to(t.device), right=False)
     logp = torch.empty_like(d)
     score = torch.empty_like(d)
-    for g in torch.unique(group).tolist():
-        fn = (lambda dd, tt: _images(dd, tt, g)) if g > 0 else (lambda dd, tt: _modes(dd, tt, -g))
-        if bool((group == g).all()):
-            logp, score = fn(d, t)
+    for g, (branch, count) in enumerate(_GROUPS):
+        mask = bucket == g
+        if not bool(mask.any()):
+            continue
+        fn = _images if branch == "images" else _modes
+        if bool(mask.all()):
+            logp, score = fn(d, t, count)
             break
-        idx = (group == g).nonzero().squeeze(-1)
-        lp, sc = fn(d[idx], t[idx])
+        idx = mask.nonzero().squeeze(-1)
+        lp, sc = fn(d[idx], t[idx], count)
         logp[idx], score[idx] = lp, sc
     return logp.reshape(shape), score.reshape(shape)
+
+
+def _image_time_limit(k: int) -> float:
+    """Largest t for which the images |j| <= k suffice.
+
+    The first omitted image is at distance >= (2k+1)π - π from d ∈ [-π, π); we require, conservatively,
+    ((2k-1)π)² / 2t >= TAIL_EXPONENT — the rule that also fixes N_IMAGES at SWITCH_TIME.
+    """
+    return ((2 * k - 1) * math.pi) ** 2 / (2 * TAIL_EXPONENT)
+
+
+def _mode_time_limit(k: int) -> float:
+    """Smallest t for which k eigen-modes suffice with one spare: exp(-k² t / 2) <= exp(-TAIL_EXPONENT)."""
+    return 2 * TAIL_EXPONENT / k**2
+
+
+# (branch, images or modes) per time bucket; bounds are the right ends of the buckets (t <= bound)
+_GROUPS = (("images", 1), ("images", 2), ("images", N_IMAGES), ("modes", N_MODES), ("modes", 4), ("modes", 2))
+_GROUP_BOUNDS = torch.tensor([_image_time_limit(1), _image_time_limit(2), SWITCH_TIME,
+                              _mode_time_limit(4), _mode_time_limit(2)], dtype=torch.float64)

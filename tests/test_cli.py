@@ -168,3 +168,50 @@ def test_fit_sample_evaluate_on_the_sphere_with_latlon(tmp_path, capsys):
     assert rep["log_likelihood"]["n"] == 5 and not rep["log_likelihood"]["is_bound"]
     assert math.isfinite(rep["log_likelihood"]["mean_nats"]) and rep["mmd2"]["n"] == 100
     assert (tmp_path / "ev" / "data_vs_samples.png").is_file() and "MMD^2" in out
+
+
+def _fasta(records):
+    return "".join(f">r{i}\n{s}\n" for i, s in enumerate(records))
+
+
+def test_sequences_fit_sample_evaluate(tmp_path, capsys):
+    rng = np.random.default_rng(2)
+    seqs = ["".join(rng.choice(list("ACGT"), 8, p=[0.4, 0.3, 0.2, 0.1])) for _ in range(120)]
+    p = tmp_path / "seqs.fasta"
+    p.write_text(_fasta(seqs))
+    code, _, err = run(["fit", str(p), "--space", "categories", "--out", str(tmp_path / "m"), "--steps", "20",
+                        "--batch-size", "32", "--quiet"], capsys)
+    assert code == 0, err
+    code, _, err = run(["sample", str(tmp_path / "m"), "--n", "7", "--out", str(tmp_path / "s.fasta"),
+                        "--steps", "10", "--quiet"], capsys)
+    assert code == 0, err
+    lines = (tmp_path / "s.fasta").read_text().split()
+    body = [l for l in lines if not l.startswith(">")]
+    assert len(body) == 7 and all(len(b) == 8 and set(b) <= set("ACGT") for b in body)
+    code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--steps", "10",
+                          "--likelihood-points", "10", "--quiet"], capsys)
+    assert code == 0, err
+    import json
+
+    rep = json.loads((tmp_path / "ev" / "evaluation.json").read_text())
+    assert rep["log_likelihood"]["is_bound"] and "1" in rep["kmer_tv_distance"]
+    assert "bits per token" in out
+
+
+@pytest.mark.parametrize("content, flags, message", [
+    (">a\nACGT\n>b\nACXT\n", ["--alphabet", "ACGT"], r"record 2, column 3: unknown symbol 'X'"),
+    (">a\nACGT\n>b\nACG\n", [], r"length"),
+    (">a\nACGT\n>b\n\n>c\nACGT\n", [], r"empty"),
+    (">a\nAAAA\n>b\nAAAA\n", [], r"at least 2|K"),
+])
+def test_bad_sequences_exit_2(tmp_path, capsys, content, flags, message):
+    import re
+
+    p = tmp_path / "bad.fasta"
+    p.write_text(content)
+    code, _, err = run(["fit", str(p), "--space", "categories", *flags, "--out", str(tmp_path / "m"),
+                        "--steps", "2", "--quiet"], capsys)
+    assert code == 2, err
+    assert err.startswith("heatwalk: error: ") and err.count("\n") == 1
+    assert re.search(message, err, flags=re.IGNORECASE), err
+    assert sorted(x.name for x in tmp_path.iterdir()) == ["bad.fasta"]

@@ -1,0 +1,43 @@
+"""heatwalk.metrics.mmd: near 0 (within its noise) for two samples of one law, clearly positive for two laws.
+
+The noise scale σ of the unbiased MMD² estimate is the standard deviation over independent
+resamples of two same-law samples (fixed seeds). Pass criteria (stated): |MMD²| < 4σ for the
+same law (failure rate ~6e-5 if the statistic were Gaussian), MMD² > 10σ for different laws.
+Targets from benchmarks/targets.py (their samplers are checked in test_benchmark_targets.py).
+"""
+
+import os
+import sys
+
+import numpy as np
+import pytest
+
+from heatwalk.metrics import median_bandwidth, mmd, mmd_with_floor
+
+sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "benchmarks"))
+
+import targets  # noqa: E402
+
+N = 300
+
+CASES = {
+    "torus2": (targets.TorusBanana(), targets.TorusBanana(a=1.0)),        # less curved banana
+    "sphere2": (targets.SphereRing(), targets.SphereRing(c=0.6)),         # ring shifted by 0.3 in μ·x
+}
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_mmd_same_law_within_noise_and_different_laws_positive(name):
+    p, q = CASES[name]
+    space = p.space
+    ref = p.sample(N, 0)
+    bw = median_bandwidth(space, ref)
+    noise = [mmd(space, p.sample(N, 10 + 2 * r), p.sample(N, 11 + 2 * r), bw) for r in range(8)]
+    sigma = float(np.std(noise, ddof=1))
+    assert sigma > 0
+    same = mmd(space, p.sample(N, 1), ref, bw)
+    diff = mmd(space, q.sample(N, 2), ref, bw)
+    assert abs(same) < 4 * sigma, (same, sigma)
+    assert diff > 10 * sigma, (diff, sigma)
+    out = mmd_with_floor(space, q.sample(N, 3), ref, p.sample(N, 4), bandwidth=bw)
+    assert out["mmd2"] > 10 * sigma and abs(out["floor"]) < 4 * sigma, (out, sigma)
