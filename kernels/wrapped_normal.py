@@ -104,7 +104,7 @@ def wrapped_normal_log_prob_and_score(d: torch.Tensor, t: torch.Tensor) -> tuple
     """
     d, t = torch.broadcast_tensors(d, t)
     shape = d.shape
-    d, t = d.reshape(-1), t.reshape(-1)
+    d, t = d.reshape(-1).contiguous(), t.reshape(-1).contiguous()
     # one pass assigns each point to the cheapest exact group (see _GROUPS), then each group is evaluated
     bucket = torch.bucketize(t, _GROUP_BOUNDS.to(t.device), right=False)
     logp = torch.empty_like(d)
