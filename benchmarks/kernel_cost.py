@@ -1,6 +1,6 @@
 """Kernel cost and accuracy.
 
-Cost: log_kernel + score on N points at mixed times (log-uniform over the
+Cost: log_kernel + score (``space.log_kernel_and_score``) on N points at mixed times (log-uniform over the
 space's time range), as a ratio to torch.distributions.Normal(...).log_prob on
 a batch of the same shape, measured side by side in one run (best of R
 repeats each). Targets: torus <= 10x, S^2 and SO(3) <= 20x.
@@ -43,7 +43,7 @@ def cost_rows(n, repeats):
         t = torch.exp(math.log(t_min) + (math.log(t_max) - math.log(t_min)) * torch.rand(n, dtype=torch.float64,
                                                                                        generator=g))
         xt = space.sample_forward(x0, t, g)
-        ours = best_time(lambda: (space.log_kernel(xt, x0, t), space.score(xt, x0, t)), repeats)
+        ours = best_time(lambda: space.log_kernel_and_score(xt, x0, t), repeats)
         loc = torch.zeros_like(xt)
         scale = t.reshape(-1, *([1] * len(space.ambient_shape))).sqrt().expand_as(xt)
         normal = torch.distributions.Normal(loc, scale, validate_args=False)

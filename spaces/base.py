@@ -231,6 +231,10 @@ class Space(ABC):
         batch = x.shape[: x.dim() - len(self.ambient_shape)]
         return torch.zeros(batch, dtype=DTYPE, device=x.device)
 
+    def log_kernel_and_score(self, xt: torch.Tensor, x0: torch.Tensor, t) -> tuple[torch.Tensor, torch.Tensor]:
+        """Both ``log_kernel`` and ``score`` at once; spaces override it to share the kernel evaluation."""
+        return self.log_kernel(xt, x0, t), self.score(xt, x0, t)
+
     def prior_sample(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
         """Draw from the law the reverse process starts from (uniform for compact spaces)."""
         return self.random_uniform(n, generator)

@@ -301,9 +301,13 @@ class SO3(Space):
         Finite at w = 0 (d/dw log p_t is odd in w) and 0 there; at w = π the
         derivative vanishes, so the choice of log is immaterial.
         """
+        return self.log_kernel_and_score(xt, x0, t)[1]
+
+    def log_kernel_and_score(self, xt, x0, t):
         t = broadcast_time(t, xt, 2)
         v = self.log(xt, x0)
         w = self.norm(xt, v)
         w_safe = torch.where(w > 0, w, torch.ones_like(w))
-        d = igso3_log_prob_and_dlog(w_safe, t)[1]
-        return (-d / w_safe)[..., None, None] * v
+        lp, d = igso3_log_prob_and_dlog(w_safe, t)
+        lp = torch.where(w > 0, lp, igso3_log_prob_and_dlog(w, t)[0])
+        return lp, (-d / w_safe)[..., None, None] * v

@@ -188,10 +188,13 @@ class Sphere(Space):
         return self._radial(xt, x0, t)[1]
 
     def score(self, xt, x0, t):
+        return self.log_kernel_and_score(xt, x0, t)[1]
+
+    def log_kernel_and_score(self, xt, x0, t):
         # grad_xt r = -log_xt(x0) / r; d/dr log p vanishes at r = 0 and r = π, where the direction is undefined
-        r, _, dlogp = self._radial(xt, x0, t)
+        r, logp, dlogp = self._radial(xt, x0, t)
         r = r.unsqueeze(-1)
         dlogp = dlogp.unsqueeze(-1)
         ratio = torch.where(r > 0, dlogp / torch.where(r > 0, r, torch.ones_like(r)), torch.zeros_like(r))
         at_antipode = (r >= math.pi)
-        return torch.where(at_antipode, torch.zeros_like(xt), -ratio * self.log(xt, x0))
+        return logp, torch.where(at_antipode, torch.zeros_like(xt), -ratio * self.log(xt, x0))

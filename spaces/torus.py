@@ -127,3 +127,7 @@ class Torus(Space):
 
     def score(self, xt, x0, t):
         return self._per_angle(xt, x0, t)[1]
+
+    def log_kernel_and_score(self, xt, x0, t):
+        lp, sc = self._per_angle(xt, x0, t)
+        return lp.sum(-1), sc

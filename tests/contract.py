@@ -119,3 +119,17 @@ ALL_CHECKS = [
     check_kernel_normalised_and_sampler_exact,
     check_prior_at_large_time,
 ]
+
+
+def check_log_kernel_and_score_agree(space: Space):
+    # the combined evaluation must equal the two separate ones (same kernel, shared work); the distance may be
+    # computed by a different but equivalent formula, hence a few-ulp absolute allowance scaled by |value|
+    x0 = space.random_uniform(64, gen(14)) if math.isfinite(space.log_volume) else space.prior_sample(64, gen(14))
+    t = torch.logspace(-3, 0.5, 64, dtype=torch.float64)
+    xt = space.sample_forward(x0, t, gen(15))
+    lp, sc = space.log_kernel_and_score(xt, x0, t)
+    torch.testing.assert_close(lp, space.log_kernel(xt, x0, t), atol=1e-13, rtol=1e-13)
+    torch.testing.assert_close(sc, space.score(xt, x0, t), atol=1e-13, rtol=1e-13)
+
+
+ALL_CHECKS.append(check_log_kernel_and_score_agree)
