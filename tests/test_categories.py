@@ -167,7 +167,7 @@ def test_posterior_matches_brute_force_bayes():
 
 
 def test_validate_and_undefined_operations():
-    sp = Categories(4, 3, alphabet="ACGT")
+    sp = Categories(4, 3, process="uniform", alphabet="ACGT")
     assert sp.validate([[0, 1, 2], [3, 3, 0]]).dtype == torch.int64
     assert sp.validate(torch.tensor([[0.0, 1.0, 2.0]])).tolist() == [[0, 1, 2]]
     with pytest.raises(InputError, match=r"row 1, position 2: state 4 is outside \[0, 4\)"):
@@ -345,7 +345,7 @@ def test_save_load_round_trip(chain_model, tmp_path):
 
 
 def test_unmasking_needs_absorbing_and_score_samplers_refuse():
-    sp = Categories(3, 4)
+    sp = Categories(3, 4, process="uniform")
     data = sp.random_uniform(64, gen(0))
     model = heatwalk.fit(sp, data, steps=2, batch_size=8, progress=False)
     with pytest.raises(InputError, match="absorbing chain"):
