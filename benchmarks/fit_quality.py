@@ -21,7 +21,8 @@ Columns (one fixed seed for every draw and fit):
   points minus the exact entropy, nats. Its ± is the standard error of the held-out mean.
   The JSON also has the paired estimate of KL(p || q) = mean(log p - log q) over the same
   points, whose standard error is much smaller. For Categories the model has no exact
-  likelihood: the column is the ELBO (an upper bound on -log q) minus H, marked "(ELBO)".
+  likelihood: the column is the ELBO (an upper bound on -log q) minus H, marked "(ELBO)";
+  the model uses the absorbing (masking) forward chain of ``Categories``.
 - MMD figures: z = MMD² / σ0. MMD² is the unbiased estimate (heatwalk.metrics.mmd,
   Gaussian kernel in the geodesic distance — Hamming distance on sequences, Aitchison
   distance on the simplex — bandwidth = median pairwise distance of held-out set A) between
@@ -65,7 +66,7 @@ import mixtures  # noqa: E402
 import targets  # noqa: E402
 from heatwalk.files import atomic_path  # noqa: E402
 from heatwalk.metrics import median_bandwidth, mmd, mmd_with_floor  # noqa: E402
-from heatwalk.spaces import Euclidean  # noqa: E402
+from heatwalk.spaces import Categories, Euclidean  # noqa: E402
 from heatwalk.spaces.simplex import ilr, ilr_inverse  # noqa: E402
 from heatwalk.spaces.so3 import matrix_to_quaternion, quaternion_to_matrix  # noqa: E402
 
@@ -77,9 +78,11 @@ SETTINGS = {
     "torus_banana": dict(steps=3500, euclid_steps=2000, hidden=256, depth=3, time_range=(1e-3, 20.0), k_max=8),
     "sphere_ring": dict(steps=3000, euclid_steps=2000, hidden=256, depth=3, time_range=(1e-3, 2 * math.log(1e5) / 2),
                         k_max=8),
-    "so3_bimodal": dict(steps=2000, euclid_steps=1500, hidden=256, depth=3, time_range=(1e-3, 10.0), k_max=4),
+    "so3_bimodal": dict(steps=3000, euclid_steps=1500, hidden=256, depth=3, time_range=(1e-3, 10.0), k_max=4),
     "simplex_dirichlet": dict(steps=3000, euclid_steps=2000, hidden=256, depth=3, time_range=(1e-3, 20.0), k_max=6),
-    "categories_markov": dict(steps=2000, euclid_steps=1500, hidden=256, depth=3, time_range=None, k_max=None),
+    # absorbing (masking) chain: at 2000 steps its ELBO gap was 0.38 nats/sequence vs 1.72 for the uniform chain
+    "categories_markov": dict(steps=2500, euclid_steps=1500, hidden=256, depth=3, time_range=None, k_max=None,
+                              process="absorbing"),
 }
 SIZES = {"default": dict(n_train=20000, n_nll=2000, n_mmd=1000, n_noise=10, sample_steps=100, batch=512,
                          step_scale=1.0, elbo_times=16),
@@ -172,7 +175,8 @@ def run_target(target, cfg, sz, progress):
               progress=progress)
     if cfg["time_range"] is not None:
         kw["time_range"] = cfg["time_range"]
-    model = heatwalk.fit(sp, train, **kw)
+    fit_space = Categories(sp.K, sp.L, process=cfg["process"]) if is_seq else sp
+    model = heatwalk.fit(fit_space, train, **kw)
     logp = target.log_prob(test)
     if is_seq:
         est = model.elbo(test, n_time_samples=sz["elbo_times"])
@@ -187,7 +191,7 @@ def run_target(target, cfg, sz, progress):
         kind = "ODE"
     n = len(logq)
     row["heatwalk"] = {
-        "likelihood": kind, "steps": steps, "network": net, "time_range": cfg["time_range"],
+        "likelihood": kind, "steps": steps, "space": fit_space.config(), "network": net, "time_range": cfg["time_range"],
         "nll_minus_entropy": float(-logq.mean() - H), "nll_se": float(logq.std(ddof=1) / math.sqrt(n)),
         "paired_kl": float((logp - logq).mean()), "paired_kl_se": float((logp - logq).std(ddof=1) / math.sqrt(n)),
         "mmd": mmd_figure(sp, samples, held_a, held_b, bw, sigma0), "train_seconds": model.record["train_seconds"],

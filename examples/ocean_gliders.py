@@ -3,7 +3,7 @@
 Invented scenario: the "Brinewake" survey runs autonomous gliders that surface
 and report the unit vector (in an Earth-fixed frame) of their current heading
 relative to their home buoy. Three survey legs give three clusters of
-directions; one leg sweeps along a great-circle arc. We fit heatwalk on S^2,
+directions; one leg sweeps along a parallel of latitude. We fit heatwalk on S^2,
 sample, and draw data against samples in longitude/latitude.
 
     python examples/ocean_gliders.py [OUT_DIR] [--steps N]
