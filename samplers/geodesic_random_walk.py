@@ -17,6 +17,17 @@ import torch
 from tqdm.auto import tqdm
 
 
+def reverse_step(field, x: torch.Tensor, t: torch.Tensor, t_next: torch.Tensor,
+                 generator: torch.Generator | None, noise: bool = True) -> torch.Tensor:
+    """One reverse geodesic random-walk step from time t to t_next < t (without noise if ``noise`` is False)."""
+    space = field.space
+    h = t - t_next
+    v = h * (field.score(x, t) - space.drift(x, t))
+    if noise:
+        v = v + h.sqrt() * space.random_tangent(x, generator)
+    return space.exp(x, v)
+
+
 def geodesic_random_walk(field, n: int, steps: int = 500, generator: torch.Generator | None = None,
                          progress: bool = True, x_init: torch.Tensor | None = None) -> torch.Tensor:
     """Draw n samples by the reverse geodesic random walk with ``steps`` steps.
@@ -29,10 +40,5 @@ def geodesic_random_walk(field, n: int, steps: int = 500, generator: torch.Gener
     x = space.prior_sample(n, generator) if x_init is None else x_init.clone()
     with torch.no_grad():
         for i in tqdm(range(steps), desc="sampling (random walk)", disable=not progress, leave=False):
-            t, t_next = times[i], times[i + 1]
-            h = t - t_next
-            v = h * (field.score(x, t) - space.drift(x, t))
-            if i < steps - 1:
-                v = v + h.sqrt() * space.random_tangent(x, generator)
-            x = space.exp(x, v)
+            x = reverse_step(field, x, times[i], times[i + 1], generator, noise=i < steps - 1)
     return x

@@ -16,6 +16,8 @@ from __future__ import annotations
 import torch
 from tqdm.auto import tqdm
 
+from heatwalk.samplers.geodesic_random_walk import reverse_step
+
 
 def predictor_corrector(field, n: int, steps: int = 500, generator: torch.Generator | None = None,
                         progress: bool = True, corrector_steps: int = 1, snr: float = 0.1,
@@ -29,10 +31,7 @@ def predictor_corrector(field, n: int, steps: int = 500, generator: torch.Genera
             t, t_next = times[i], times[i + 1]
             h = t - t_next
             last = i == steps - 1
-            v = h * (field.score(x, t) - space.drift(x, t))
-            if not last:
-                v = v + h.sqrt() * space.random_tangent(x, generator)
-            x = space.exp(x, v)
+            x = reverse_step(field, x, t, t_next, generator, noise=not last)
             if last:
                 break
             for _ in range(corrector_steps):
