@@ -1,0 +1,38 @@
+"""The library reproduces the fixed-seed golden values recorded before the protocol redesign.
+
+Reference: ``tests/golden/golden.npz``, written by ``tests/golden/golden_values.py``
+from the code as it stood before the redesign (commit history). Everything must
+match bit for bit, except where a stated reordering of floating-point operations
+changes the last bits (listed in ``ROUNDING`` with the reason and tolerance).
+"""
+
+import numpy as np
+import pytest
+
+from golden.golden_values import GOLDEN_FILE, compute_golden
+
+#: key prefix -> (relative tolerance, reason). Everything else: exact equality.
+ROUNDING: dict[str, tuple[float, str]] = {}
+
+
+@pytest.fixture(scope="module")
+def values():
+    return compute_golden()
+
+
+def test_golden_values_unchanged(values):
+    golden = np.load(GOLDEN_FILE)
+    assert sorted(golden.files) == sorted(values), "the set of recorded values changed"
+    mismatched = []
+    for key in golden.files:
+        want, got = golden[key], values[key]
+        assert want.shape == got.shape, key
+        tol = next((r for prefix, (r, _) in ROUNDING.items() if key.startswith(prefix)), None)
+        if tol is None:
+            same = np.array_equal(want, got, equal_nan=True)
+        else:
+            same = np.allclose(got, want, rtol=tol, atol=tol, equal_nan=True)
+        if not same:
+            diff = np.nanmax(np.abs(np.where(np.isinf(want), 0, want - got))) if want.dtype.kind == "f" else "int"
+            mismatched.append(f"{key} (max abs diff {diff})")
+    assert not mismatched, "changed: " + "; ".join(mismatched)
