@@ -23,7 +23,7 @@ Columns (one fixed seed for every draw and fit):
   points, whose standard error is much smaller. For Categories the model has no exact
   likelihood: the column is the ELBO (an upper bound on -log q) minus H, marked "(ELBO)";
   the model uses the absorbing (masking) forward chain of ``Categories``.
-- MMD figures: z = MMD² / σ0. MMD² is the unbiased estimate (heatwalk.metrics.mmd,
+- MMD figures: z = MMD² / σ0. MMD² is the unbiased estimate (heatwalk.frontend.metrics.mmd,
   Gaussian kernel in the geodesic distance — Hamming distance on sequences, Aitchison
   distance on the simplex — bandwidth = median pairwise distance of held-out set A) between
   N_MMD model samples and held-out set A. σ0 > 0 is the noise scale of the statistic: the
@@ -64,8 +64,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import heatwalk  # noqa: E402
 import mixtures  # noqa: E402
 import targets  # noqa: E402
-from heatwalk.files import atomic_path  # noqa: E402
-from heatwalk.metrics import median_bandwidth, mmd, mmd_with_floor  # noqa: E402
+from heatwalk.io.atomic import atomic_path  # noqa: E402
+from heatwalk.frontend.metrics import median_bandwidth, mmd, mmd_with_floor  # noqa: E402
 from heatwalk.spaces import Categories, Euclidean  # noqa: E402
 from heatwalk.spaces.simplex import ilr, ilr_inverse  # noqa: E402
 from heatwalk.spaces.so3 import matrix_to_quaternion, quaternion_to_matrix  # noqa: E402

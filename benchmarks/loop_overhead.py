@@ -20,8 +20,8 @@ import time
 import torch
 
 import heatwalk
-from heatwalk.networks import MLPDenoiser
-from heatwalk.schedule import TimeSchedule
+from heatwalk.core.networks import MLPDenoiser
+from heatwalk.core.schedule import TimeSchedule
 from heatwalk.spaces import Torus
 
 

@@ -17,9 +17,9 @@ import numpy as np
 import torch
 
 import heatwalk
-from heatwalk.io import write_points
-from heatwalk.metrics import mmd_with_floor
-from heatwalk.plots import plot_data_and_samples
+from heatwalk.io.tables import write_points
+from heatwalk.frontend.metrics import mmd_with_floor
+from heatwalk.frontend.plots import plot_data_and_samples
 from heatwalk.spaces import Sphere
 
 

@@ -45,10 +45,10 @@ import numpy as np
 import torch
 
 import heatwalk
-from heatwalk.files import atomic_path
-from heatwalk.io import write_points
-from heatwalk.metrics import median_bandwidth, mmd
-from heatwalk.plots import plot_data_and_samples
+from heatwalk.io.atomic import atomic_path
+from heatwalk.io.tables import write_points
+from heatwalk.frontend.metrics import median_bandwidth, mmd
+from heatwalk.frontend.plots import plot_data_and_samples
 from heatwalk.spaces import Simplex
 
 COLUMNS = ["wfood", "wfuel", "wcloth", "walc", "wtrans", "wother"]

@@ -33,7 +33,7 @@ from pathlib import Path
 import torch
 
 import heatwalk
-from heatwalk.sequences import encode_records, write_sequences
+from heatwalk.io.sequence_files import encode_records, write_sequences
 from heatwalk.spaces import Categories
 
 AMINO = {"ALA": "A", "ARG": "R", "ASN": "N", "ASP": "D", "CYS": "C", "GLN": "Q", "GLU": "E", "GLY": "G",

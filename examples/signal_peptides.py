@@ -26,7 +26,7 @@ from pathlib import Path
 import torch
 
 import heatwalk
-from heatwalk.sequences import write_sequences
+from heatwalk.io.sequence_files import write_sequences
 from heatwalk.spaces import Categories
 
 ALPHABET = "MKRSLAVFGE"

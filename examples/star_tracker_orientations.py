@@ -40,9 +40,9 @@ import numpy as np
 import torch
 
 import heatwalk
-from heatwalk.files import atomic_path
-from heatwalk.io import write_points
-from heatwalk.metrics import mmd_with_floor
+from heatwalk.io.atomic import atomic_path
+from heatwalk.io.tables import write_points
+from heatwalk.frontend.metrics import mmd_with_floor
 from heatwalk.spaces import SO3
 from heatwalk.spaces.so3 import exp_so3
 

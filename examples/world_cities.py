@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 
 import heatwalk
-from heatwalk.plots import plot_data_and_samples
+from heatwalk.frontend.plots import plot_data_and_samples
 from heatwalk.spaces import Sphere
 
 

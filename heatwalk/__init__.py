@@ -12,8 +12,8 @@ accuracy; one training loop and one set of samplers serve every space.
 
 from heatwalk.errors import InputError
 from heatwalk import spaces
-from heatwalk.training import fit
-from heatwalk.model import Model, load
+from heatwalk.core.training import fit
+from heatwalk.core.model import Model, load
 
 __all__ = ["InputError", "spaces", "fit", "Model", "load"]
 __version__ = "0.1.0"

@@ -32,7 +32,7 @@ def geodesic_random_walk(field, n: int, steps: int = 500, generator: torch.Gener
                          progress: bool = True, x_init: torch.Tensor | None = None) -> torch.Tensor:
     """Draw n samples by the reverse geodesic random walk with ``steps`` steps.
 
-    ``field`` is a :class:`heatwalk.objectives.ScoreField`. ``x_init`` (optional)
+    ``field`` is a :class:`heatwalk.core.objectives.ScoreField`. ``x_init`` (optional)
     replaces the draw from the prior at t_max.
     """
     space = field.space

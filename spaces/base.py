@@ -76,7 +76,7 @@ class Space(ABC):
     dim: int
     #: shape of one point as stored
     ambient_shape: tuple[int, ...]
-    #: name of the training objective in ``heatwalk.objectives.OBJECTIVES``
+    #: name of the training objective in ``heatwalk.core.objectives.OBJECTIVES``
     objective_name: str = "score_matching"
 
     # ----- identity / serialisation ---------------------------------------------------------

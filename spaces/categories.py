@@ -112,7 +112,7 @@ class Categories(Space):
         """List of strings over ``alphabet`` -> validated codes (n, L)."""
         if self.alphabet is None:
             raise InputError("Categories.encode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
-        from heatwalk.sequences import encode_records
+        from heatwalk.io.sequence_files import encode_records
         return self.validate(encode_records(list(strings), self.alphabet, length=self.L))
 
     def decode(self, x: torch.Tensor) -> list[str]:

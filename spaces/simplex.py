@@ -317,7 +317,7 @@ class Simplex(Space):
         return ilr_inverse(y)
 
     def plot_coordinates(self, x):
-        """2-D picture coordinates for :func:`heatwalk.plots.plot_data_and_samples`.
+        """2-D picture coordinates for :func:`heatwalk.frontend.plots.plot_data_and_samples`.
 
         K = 3: the ternary diagram (part0 at the lower-left corner (0, 0), part1
         at (1, 0), part2 at the top (1/2, sqrt(3)/2)). K > 3: the first two ilr

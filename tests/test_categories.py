@@ -20,10 +20,10 @@ import torch
 
 import heatwalk
 from heatwalk import InputError
-from heatwalk.discrete_objective import DiscreteELBO
+from heatwalk.core.objectives.discrete_elbo import DiscreteELBO
 from heatwalk.kernels.ctmc import CTMC
-from heatwalk.schedule import TimeSchedule
-from heatwalk.sequences import read_sequences, write_sequences
+from heatwalk.core.schedule import TimeSchedule
+from heatwalk.io.sequence_files import read_sequences, write_sequences
 from heatwalk.spaces import Categories, from_config
 
 EPS = float(np.finfo(np.float64).eps)

@@ -8,7 +8,7 @@ import sys
 import numpy as np
 import pytest
 
-from heatwalk.cli import main
+from heatwalk.frontend.cli import main
 
 
 def run(args, capsys):
@@ -103,7 +103,7 @@ def test_unknown_space_and_missing_file(tmp_path, capsys):
 
 def test_demo_runs_as_a_command(tmp_path):
     # the installed console script, as a user would run it (short training to keep the suite fast)
-    r = subprocess.run([sys.executable, "-m", "heatwalk.cli", "demo", "--out", str(tmp_path / "demo"),
+    r = subprocess.run([sys.executable, "-m", "heatwalk.frontend.cli", "demo", "--out", str(tmp_path / "demo"),
                         "--steps", "150", "--sample-steps", "40", "--quiet"], capture_output=True, text=True,
                        timeout=600)
     assert r.returncode == 0, r.stderr

@@ -12,7 +12,7 @@ import pytest
 import torch
 
 import heatwalk
-from heatwalk.metrics import mmd_with_floor
+from heatwalk.frontend.metrics import mmd_with_floor
 from heatwalk.spaces import SO3
 from heatwalk.spaces.so3 import exp_so3
 

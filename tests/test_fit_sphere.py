@@ -6,7 +6,7 @@ import scipy.stats
 import torch
 
 import heatwalk
-from heatwalk.metrics import mmd_with_floor
+from heatwalk.frontend.metrics import mmd_with_floor
 from heatwalk.spaces import Sphere
 
 CENTRES = np.array([[0.0, 0.0, 1.0], [1.0, 0.0, 0.0], [0.0, -0.6, -0.8]])

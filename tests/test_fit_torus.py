@@ -8,7 +8,7 @@ import scipy.stats
 import torch
 
 import heatwalk
-from heatwalk.metrics import circular_wasserstein, mmd_with_floor
+from heatwalk.frontend.metrics import circular_wasserstein, mmd_with_floor
 from heatwalk.spaces import Torus
 
 MEANS = np.array([[-2.0, 2.6], [-1.2, -0.7], [1.0, 0.8]])
@@ -83,7 +83,7 @@ def test_checkpoint_resume_gives_the_same_weights(tmp_path):
     heatwalk.fit(space, data, **kw, checkpoint_dir=tmp_path / "half", checkpoint_every=30)
     state = torch.load(tmp_path / "half" / "checkpoint.pt", weights_only=True)
     assert state["step"] == 60
-    import heatwalk.training as fitmod
+    import heatwalk.core.training as fitmod
 
     class Stop(Exception):
         pass

@@ -5,9 +5,9 @@ import math
 import pytest
 import torch
 
-from heatwalk.objectives import ScoreField
+from heatwalk.core.objectives import ScoreField
 from heatwalk.samplers.probability_flow import FlowField, log_likelihood, probability_flow
-from heatwalk.schedule import TimeSchedule
+from heatwalk.core.schedule import TimeSchedule
 from heatwalk.spaces import SO3, Sphere, Torus
 
 SPACES = {"torus2": lambda: Torus(2), "sphere2": lambda: Sphere(2), "so3": lambda: SO3()}

@@ -1,4 +1,4 @@
-"""heatwalk.metrics.mmd: near 0 (within its noise) for two samples of one law, clearly positive for two laws.
+"""heatwalk.frontend.metrics.mmd: near 0 (within its noise) for two samples of one law, clearly positive for two laws.
 
 The noise scale σ of the unbiased MMD² estimate is the standard deviation over independent
 resamples of two same-law samples (fixed seeds). Pass criteria (stated): |MMD²| < 4σ for the
@@ -12,7 +12,7 @@ import sys
 import numpy as np
 import pytest
 
-from heatwalk.metrics import median_bandwidth, mmd, mmd_with_floor
+from heatwalk.frontend.metrics import median_bandwidth, mmd, mmd_with_floor
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "benchmarks"))
 

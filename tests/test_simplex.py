@@ -16,10 +16,10 @@ import torch
 
 import heatwalk
 from heatwalk import InputError
-from heatwalk.metrics import median_bandwidth, mmd
-from heatwalk.objectives import ScoreField
+from heatwalk.frontend.metrics import median_bandwidth, mmd
+from heatwalk.core.objectives import ScoreField
 from heatwalk.samplers import geodesic_random_walk, predictor_corrector
-from heatwalk.schedule import TimeSchedule
+from heatwalk.core.schedule import TimeSchedule
 from heatwalk.spaces import Simplex, from_config
 from heatwalk.spaces.simplex import clr, helmert_basis, ilr, ilr_inverse
 
@@ -353,7 +353,7 @@ def dirichlet_mixture(n, rng):
 
 
 def test_fit_on_dirichlet_mixture_beats_baselines():
-    # Held-out metric: unbiased MMD² (heatwalk.metrics.mmd; Gretton et al. 2012) with a Gaussian kernel in the
+    # Held-out metric: unbiased MMD² (heatwalk.frontend.metrics.mmd; Gretton et al. 2012) with a Gaussian kernel in the
     # Aitchison distance, bandwidth = median heuristic on held-out set A; 1000 points per sample.
     # Baselines: (1) the stationary law (where the reverse process starts), (2) the best single logistic-normal
     # (ilr mean and covariance of the training data: unimodal, so it misses the two modes).

@@ -16,7 +16,7 @@ import numpy as np
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.files import atomic_path
+from heatwalk.io.atomic import atomic_path
 from heatwalk.spaces.base import Space
 
 

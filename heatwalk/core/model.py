@@ -19,9 +19,9 @@ import torch
 from torch import nn
 
 from heatwalk.errors import InputError
-from heatwalk.files import atomic_dir
-from heatwalk.networks import build_network, network_name
-from heatwalk.objectives import make_objective
+from heatwalk.io.atomic import atomic_dir
+from heatwalk.core.networks import build_network, network_name
+from heatwalk.core.objectives import make_objective
 from heatwalk.samplers import SAMPLERS
 from heatwalk.spaces import from_config
 from heatwalk.spaces.base import Space

@@ -22,10 +22,10 @@ import torch
 from tqdm.auto import tqdm
 
 from heatwalk.errors import InputError
-from heatwalk.files import atomic_path
-from heatwalk.model import Model
-from heatwalk.networks import network_name
-from heatwalk.objectives import make_objective
+from heatwalk.io.atomic import atomic_path
+from heatwalk.core.model import Model
+from heatwalk.core.networks import network_name
+from heatwalk.core.objectives import make_objective
 from heatwalk.spaces.base import Space
 
 CHECKPOINT_NAME = "checkpoint.pt"

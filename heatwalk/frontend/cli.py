@@ -75,10 +75,10 @@ def _sequence_options(args) -> dict:
 
 def _read_for_fit(args):
     """(points, space, reading options) for the data file of ``heatwalk fit``."""
-    from heatwalk.io import read_points, read_table
+    from heatwalk.io.tables import read_points, read_table
 
     if args.space == "categories":  # FASTA or one-sequence-per-line text
-        from heatwalk.sequences import read_sequences
+        from heatwalk.io.sequence_files import read_sequences
 
         opts = _sequence_options(args)
         seqs = read_sequences(args.data, **opts)
@@ -91,10 +91,10 @@ def _read_for_fit(args):
 
 def _read_with_space(path, space, options):
     """Points of a data file on a known space (a fitted model's), with the model's reading options."""
-    from heatwalk.io import read_points
+    from heatwalk.io.tables import read_points
 
     if space.config()["kind"] == "categories":
-        from heatwalk.sequences import read_sequences
+        from heatwalk.io.sequence_files import read_sequences
 
         opts = {k: v for k, v in options.items() if k in ("format", "uppercase")}
         return read_sequences(path, alphabet=space.alphabet, length=space.L, **opts).codes
@@ -102,10 +102,10 @@ def _read_with_space(path, space, options):
 
 
 def _write_samples(path, space, x, options, overwrite):
-    from heatwalk.io import write_points
+    from heatwalk.io.tables import write_points
 
     if space.config()["kind"] == "categories":
-        from heatwalk.sequences import write_sequences
+        from heatwalk.io.sequence_files import write_sequences
 
         fmt = "text" if str(path).endswith((".txt", ".text")) else "fasta"
         return write_sequences(path, x, space.alphabet, format=fmt, overwrite=True)
@@ -152,8 +152,8 @@ def cmd_sample(args) -> int:
 
 def cmd_evaluate(args) -> int:
     import heatwalk
-    from heatwalk.evaluation import evaluate, format_table, write_report
-    from heatwalk.plots import plot_data_and_samples
+    from heatwalk.frontend.evaluation import evaluate, format_table, write_report
+    from heatwalk.frontend.plots import plot_data_and_samples
 
     model = heatwalk.load(args.model)
     options = _reading_options(args) or dict(model.record.get("reading_options", {}))
@@ -174,10 +174,10 @@ def cmd_demo(args) -> int:
     import numpy as np
 
     import heatwalk
-    from heatwalk.demo_data import lanternfold_torsions
-    from heatwalk.io import write_points
-    from heatwalk.metrics import circular_wasserstein, mmd_with_floor
-    from heatwalk.plots import plot_data_and_samples
+    from heatwalk.frontend.demo_data import lanternfold_torsions
+    from heatwalk.io.tables import write_points
+    from heatwalk.frontend.metrics import circular_wasserstein, mmd_with_floor
+    from heatwalk.frontend.plots import plot_data_and_samples
     from heatwalk.spaces import Torus
 
     out = Path(args.out)

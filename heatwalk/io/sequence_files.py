@@ -30,7 +30,7 @@ from pathlib import Path
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.files import atomic_path
+from heatwalk.io.atomic import atomic_path
 
 FORMATS = ("auto", "fasta", "text")
 #: FASTA sequence lines written by ``write_sequences`` are wrapped at this width

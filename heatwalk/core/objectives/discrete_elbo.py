@@ -35,9 +35,9 @@ import torch
 from torch import nn
 
 from heatwalk.errors import InputError
-from heatwalk.networks import MLPDenoiser
-from heatwalk.schedule import TimeSchedule
-from heatwalk.sequence_networks import TransformerDenoiser
+from heatwalk.core.networks import MLPDenoiser
+from heatwalk.core.schedule import TimeSchedule
+from heatwalk.core.networks.transformer import TransformerDenoiser
 
 LN2 = math.log(2.0)
 

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from heatwalk.files import atomic_path
+from heatwalk.io.atomic import atomic_path
 
 
 def default_plot_coordinates(space, x):

@@ -23,8 +23,8 @@ from pathlib import Path
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.files import atomic_path
-from heatwalk.metrics import circular_wasserstein, kmer_spectrum_distance, mean_log_likelihood, mmd_with_floor
+from heatwalk.io.atomic import atomic_path
+from heatwalk.frontend.metrics import circular_wasserstein, kmer_spectrum_distance, mean_log_likelihood, mmd_with_floor
 
 
 def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 300, sampler: str | None = None,

@@ -1,8 +1,4 @@
-"""Denoiser networks. Each is rebuilt from a JSON config, so checkpoints hold only tensors.
-
-``NETWORKS`` maps a name to a class with ``__init__(**config)`` and a
-``config()`` method returning the same keyword arguments.
-"""
+"""A multi-layer perceptron denoiser on point and time features."""
 
 from __future__ import annotations
 
@@ -39,24 +35,3 @@ class MLPDenoiser(nn.Module):
 
     def forward(self, features: torch.Tensor, time_features: torch.Tensor) -> torch.Tensor:
         return self.net(torch.cat([features, time_features], dim=-1))
-
-
-NETWORKS: dict[str, type] = {"mlp": MLPDenoiser}
-
-
-def build_network(name: str, config: dict) -> nn.Module:
-    if name not in NETWORKS:
-        raise InputError(f"unknown network {name!r}; known: {sorted(NETWORKS)}", field="network")
-    return NETWORKS[name](**config)
-
-
-def network_name(net: nn.Module) -> str:
-    for name, cls in NETWORKS.items():
-        if type(net) is cls:
-            return name
-    raise InputError(f"network class {type(net).__name__} is not registered in heatwalk.networks.NETWORKS")
-
-
-from heatwalk.sequence_networks import TransformerDenoiser  # noqa: E402  (sequence models)
-
-NETWORKS["transformer"] = TransformerDenoiser

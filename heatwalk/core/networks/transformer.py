@@ -1,6 +1,6 @@
 """A small transformer encoder over sequence positions, predicting per-position logits.
 
-Registered in :data:`heatwalk.networks.NETWORKS` as ``"transformer"``; like every
+Registered in :data:`heatwalk.core.networks.NETWORKS` as ``"transformer"``; like every
 heatwalk network it is rebuilt from the keyword arguments its ``config()``
 returns, and its ``forward(features, time_features)`` takes the flat features
 of :meth:`Space.embed` and the schedule's time features.

@@ -1,0 +1,1 @@
+"""The core: the shared fit loop, training objectives, denoiser networks and the fitted Model."""

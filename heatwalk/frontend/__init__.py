@@ -1,0 +1,1 @@
+"""The front end: command line, evaluation reports, sample metrics, pictures and the demo."""

@@ -1,0 +1,1 @@
+"""Reading and writing data files and results (atomic writes, tables, sequence files)."""
