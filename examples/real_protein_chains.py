@@ -33,7 +33,8 @@ from pathlib import Path
 import torch
 
 import heatwalk
-from heatwalk.io.sequence_files import encode_records, write_sequences
+from heatwalk.io.sequence_files import write_sequences
+from heatwalk.spaces.alphabet import encode_strings
 from heatwalk.spaces import Categories
 
 AMINO = {"ALA": "A", "ARG": "R", "ASN": "N", "ASP": "D", "CYS": "C", "GLN": "Q", "GLU": "E", "GLY": "G",
@@ -77,8 +78,8 @@ def main():
     torch.set_num_threads(1)
 
     train_w, test_w = windows(chain_strings(FILES)), windows(chain_strings(HELD_OUT))
-    train = encode_records(train_w, list(ALPHABET), length=L, where="training windows")
-    test = encode_records(test_w, list(ALPHABET), length=L, where="held-out windows")
+    train = encode_strings(train_w, list(ALPHABET), length=L, where="training windows")
+    test = encode_strings(test_w, list(ALPHABET), length=L, where="held-out windows")
     print(f"{len(train_w)} training windows, {len(test_w)} held-out windows of {L} residues")
 
     space = Categories(20, L, process="absorbing", alphabet=ALPHABET)

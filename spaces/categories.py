@@ -34,6 +34,7 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix
+from heatwalk.spaces.alphabet import check_alphabet, encode_strings
 from heatwalk.spaces.base import Space
 
 PROCESSES = ("uniform", "absorbing", "rates")
@@ -80,7 +81,7 @@ class Categories(Space):
                              f"(got process={process!r}, rates {'given' if rates is not None else 'missing'})",
                              field="rates")
         self.K, self.L, self.process = K, L, process
-        self.alphabet = _check_alphabet(alphabet, K)
+        self.alphabet = check_alphabet(alphabet, K)
         self._rates = None
         if process == "uniform":
             self.chain = CTMC.uniform(K)
@@ -112,8 +113,7 @@ class Categories(Space):
         """List of strings over ``alphabet`` -> validated codes (n, L)."""
         if self.alphabet is None:
             raise InputError("Categories.encode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
-        from heatwalk.io.sequence_files import encode_records
-        return self.validate(encode_records(list(strings), self.alphabet, length=self.L))
+        return self.validate(encode_strings(list(strings), self.alphabet, length=self.L))
 
     def decode(self, x: torch.Tensor) -> list[str]:
         """Codes (n, L) -> strings over ``alphabet``."""
@@ -333,25 +333,3 @@ class Categories(Space):
     def score(self, xt, x0, t):
         raise TypeError("Categories.score is undefined on a finite state space (no gradient); its role is played "
                         "by the network's x0 logits through log_reverse_rates")
-
-
-def _check_alphabet(alphabet, K: int):
-    if alphabet is None:
-        return None
-    if isinstance(alphabet, str):
-        symbols = list(alphabet)
-    else:
-        symbols = list(alphabet)
-        for i, s in enumerate(symbols):
-            if not isinstance(s, str) or len(s) != 1:
-                raise InputError(f"alphabet: symbol {i} is {s!r}, expected a single character", field="alphabet")
-    if len(symbols) != K:
-        raise InputError(f"alphabet: has {len(symbols)} symbols, expected K = {K}", field="alphabet")
-    seen = set()
-    for s in symbols:
-        if s in seen:
-            raise InputError(f"alphabet: symbol {s!r} appears twice", field="alphabet")
-        if s.isspace() or s == ">":
-            raise InputError(f"alphabet: symbol {s!r} cannot be written in FASTA or text files", field="alphabet")
-        seen.add(s)
-    return symbols

@@ -31,6 +31,8 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.io.atomic import atomic_path
+from heatwalk.spaces.alphabet import check_alphabet, encode_strings
+from heatwalk.spaces.categories import Categories
 
 FORMATS = ("auto", "fasta", "text")
 #: FASTA sequence lines written by ``write_sequences`` are wrapped at this width
@@ -55,7 +57,6 @@ class SequenceSet:
 
     def space(self, process: str | None = None, rates=None):
         """The :class:`Categories` space of these sequences (alphabet included)."""
-        from heatwalk.spaces.categories import Categories
         return Categories(self.K, self.L, process=process, rates=rates, alphabet="".join(self.alphabet))
 
 
@@ -97,30 +98,6 @@ def _parse_text(text: str, where: str):
     return [f"seq{i + 1}" for i in range(len(lines))], lines
 
 
-def encode_records(seqs: list[str], alphabet: list[str], length: int | None = None,
-                   where: str = "sequences") -> torch.Tensor:
-    """Strings -> (n, L) int64 codes over ``alphabet``; errors name the record and column (1-based)."""
-    if not seqs:
-        raise InputError(f"{where}: no sequences")
-    index = {s: k for k, s in enumerate(alphabet)}
-    L = len(seqs[0]) if length is None else length
-    codes = torch.empty(len(seqs), L, dtype=torch.int64)
-    for i, s in enumerate(seqs):
-        if not s:
-            raise InputError(f"{where}: record {i + 1} is empty", row=i)
-        if len(s) != L:
-            raise InputError(f"{where}: record {i + 1} has length {len(s)}, expected {L} "
-                             f"({'given' if length is not None else 'the length of record 1'}; "
-                             "all sequences must have the same length)", row=i, field="length")
-        try:
-            codes[i] = torch.tensor([index[c] for c in s], dtype=torch.int64)
-        except KeyError:
-            j = next(j for j, c in enumerate(s) if c not in index)
-            raise InputError(f"{where}: record {i + 1}, column {j + 1}: unknown symbol {s[j]!r} "
-                             f"(alphabet: {''.join(alphabet)!r})", row=i, field=str(j)) from None
-    return codes
-
-
 def read_sequences(path, *, format: str = "auto", alphabet=None, length: int | None = None,
                    uppercase: bool = False) -> SequenceSet:
     """Read equal-length sequences from a FASTA or one-per-line text file (see the module's policies).
@@ -154,11 +131,10 @@ def read_sequences(path, *, format: str = "auto", alphabet=None, length: int | N
     if len(symbols) < 2:
         raise InputError(f"{path}: the alphabet has {len(symbols)} symbol(s) {''.join(map(str, symbols))!r}; "
                          "a categorical model needs at least 2", field="alphabet")
-    from heatwalk.spaces.categories import _check_alphabet
-    symbols = _check_alphabet(symbols, len(symbols))
+    symbols = check_alphabet(symbols, len(symbols))
     if length is not None and (not isinstance(length, int) or length < 1):
         raise InputError(f"length must be a positive integer, got {length!r}", field="length")
-    codes = encode_records(seqs, symbols, length=length, where=str(path))
+    codes = encode_strings(seqs, symbols, length=length, where=str(path))
     return SequenceSet(codes=codes, alphabet=list(symbols), names=names)
 
 
