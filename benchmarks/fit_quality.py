@@ -65,7 +65,7 @@ import heatwalk  # noqa: E402
 import mixtures  # noqa: E402
 import targets  # noqa: E402
 from heatwalk.io.atomic import atomic_path  # noqa: E402
-from heatwalk.frontend.metrics import median_bandwidth, mmd, mmd_with_floor  # noqa: E402
+from heatwalk.frontend.metrics import median_bandwidth, mmd_squared, mmd_with_floor  # noqa: E402
 from heatwalk.spaces import Categories, Euclidean  # noqa: E402
 from heatwalk.spaces.simplex import ilr, ilr_inverse  # noqa: E402
 from heatwalk.spaces.so3 import matrix_to_quaternion, quaternion_to_matrix  # noqa: E402
@@ -161,7 +161,7 @@ def run_target(target, cfg, sz, progress):
     held_a = target.sample(sz["n_mmd"], SEED + 3)
     held_b = target.sample(sz["n_mmd"], SEED + 4)
     bw = median_bandwidth(sp, held_a)
-    noise = [mmd(sp, target.sample(sz["n_mmd"], 100 + 2 * r), target.sample(sz["n_mmd"], 101 + 2 * r), bw)
+    noise = [mmd_squared(sp, target.sample(sz["n_mmd"], 100 + 2 * r), target.sample(sz["n_mmd"], 101 + 2 * r), bw)
              for r in range(sz["n_noise"])]
     sigma0 = float(np.std(noise, ddof=1))
     row = {"target": target.name, "label": target.label, "entropy": H, "bandwidth": bw,

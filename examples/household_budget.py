@@ -34,7 +34,7 @@ import torch
 import heatwalk
 from heatwalk.io.atomic import atomic_path
 from heatwalk.io.tables import write_points
-from heatwalk.frontend.metrics import median_bandwidth, mmd
+from heatwalk.frontend.metrics import median_bandwidth, mmd_squared
 from heatwalk.frontend.plots import plot_data_and_samples
 from heatwalk.spaces import Simplex
 
@@ -93,7 +93,7 @@ def main(argv=None) -> int:
     model = heatwalk.fit(space, train, steps=args.steps, batch_size=256, network={"hidden": 128, "depth": 3},
                          ema_decay=0.995, seed=args.seed)
     samples = model.sample(1000, steps=400, seed=args.seed + 1)
-    write_points(out / "samples.csv", space, samples)
+    write_points(out / "samples.csv", space, samples, overwrite=True)
 
     bw = median_bandwidth(space, held_a)
     prior = space.prior_sample(1000, torch.Generator().manual_seed(args.seed + 2))
@@ -101,9 +101,9 @@ def main(argv=None) -> int:
         "Marrowfield household budgets (invented), Simplex(4): " + ", ".join(PARTS),
         f"training households {train.shape[0]}, held-out {held_a.shape[0]} + {held_b.shape[0]}",
         f"MMD^2, Gaussian kernel in Aitchison distance, bandwidth {bw:.3f} (median heuristic):",
-        f"  heatwalk samples vs held-out A   {mmd(space, samples, held_a, bw):.5f}",
-        f"  held-out B vs held-out A (floor) {mmd(space, held_b, held_a, bw):.5f}",
-        f"  stationary law vs held-out A     {mmd(space, prior, held_a, bw):.5f}",
+        f"  heatwalk samples vs held-out A   {mmd_squared(space, samples, held_a, bw):.5f}",
+        f"  held-out B vs held-out A (floor) {mmd_squared(space, held_b, held_a, bw):.5f}",
+        f"  stationary law vs held-out A     {mmd_squared(space, prior, held_a, bw):.5f}",
         "mean shares  data:    " + " ".join(f"{v:.3f}" for v in held_a.mean(0).tolist()),
         "mean shares  samples: " + " ".join(f"{v:.3f}" for v in samples.mean(0).tolist()),
     ]

@@ -47,7 +47,7 @@ import torch
 import heatwalk
 from heatwalk.io.atomic import atomic_path
 from heatwalk.io.tables import write_points
-from heatwalk.frontend.metrics import median_bandwidth, mmd
+from heatwalk.frontend.metrics import median_bandwidth, mmd_squared
 from heatwalk.frontend.plots import plot_data_and_samples
 from heatwalk.spaces import Simplex
 
@@ -106,7 +106,7 @@ def main(argv=None) -> int:
     model = heatwalk.fit(space, train, steps=args.steps, batch_size=256, network={"hidden": 256, "depth": 3},
                          ema_decay=0.995, seed=args.seed)
     samples = model.sample(1000, steps=500, seed=args.seed + 1)
-    write_points(out / "samples.csv", space, samples)
+    write_points(out / "samples.csv", space, samples, overwrite=True)
 
     bw = median_bandwidth(space, held_a)
     g = torch.Generator().manual_seed(args.seed + 2)
@@ -119,10 +119,10 @@ def main(argv=None) -> int:
         f"{x.shape[0]} households, {n_zero_rows} with zero parts replaced multiplicatively (delta = "
         f"{ZERO_REPLACEMENT:g}); training {train.shape[0]}, held-out {held_a.shape[0]} + {held_b.shape[0]}",
         f"MMD^2, Gaussian kernel in Aitchison distance, bandwidth {bw:.3f} (median heuristic), 250 points each:",
-        f"  heatwalk samples vs held-out A      {mmd(space, samples[:250], held_a, bw):.5f}",
-        f"  held-out B vs held-out A (floor)    {mmd(space, held_b, held_a, bw):.5f}",
-        f"  fitted logistic-normal vs held-out  {mmd(space, lognormal, held_a, bw):.5f}",
-        f"  stationary law vs held-out A        {mmd(space, prior, held_a, bw):.5f}",
+        f"  heatwalk samples vs held-out A      {mmd_squared(space, samples[:250], held_a, bw):.5f}",
+        f"  held-out B vs held-out A (floor)    {mmd_squared(space, held_b, held_a, bw):.5f}",
+        f"  fitted logistic-normal vs held-out  {mmd_squared(space, lognormal, held_a, bw):.5f}",
+        f"  stationary law vs held-out A        {mmd_squared(space, prior, held_a, bw):.5f}",
         "mean shares  data:    " + " ".join(f"{v:.3f}" for v in held_a.mean(0).tolist()),
         "mean shares  samples: " + " ".join(f"{v:.3f}" for v in samples.mean(0).tolist()),
     ]

@@ -121,8 +121,8 @@ def plot_rotation_vectors(space: SO3, data: torch.Tensor, samples: torch.Tensor,
     import matplotlib.pyplot as plt
 
     fig, axes = plt.subplots(1, 3, figsize=(13, 4.9))
-    dv = space.to_rows(data, format="rotvec").numpy()
-    sv = space.to_rows(samples, format="rotvec").numpy()
+    dv = space.to_rows(data, rotation_format="rotvec").numpy()
+    sv = space.to_rows(samples, rotation_format="rotvec").numpy()
     for ax, (i, j) in zip(axes, ((0, 1), (0, 2), (1, 2))):
         ax.scatter(dv[:, i], dv[:, j], s=2, alpha=0.3, lw=0, label="attitude log")
         ax.scatter(sv[:, i], sv[:, j], s=2, alpha=0.3, lw=0, label="model samples")
@@ -157,7 +157,7 @@ def main():
     model = heatwalk.fit(space, train, steps=args.steps, batch_size=256, seed=args.seed,
                          network={"hidden": 256, "depth": 3})
     print(f"trained {args.steps} steps in {model.record['train_seconds']:.0f} s "
-          f"(final loss {model.record['final_loss']:.4f})")
+          f"(mean loss of the last 100 steps {model.record['mean_loss_last_100_steps']:.4f})")
     samples = model.sample(2000, steps=300, seed=args.seed + 4)
     haar = space.random_uniform(1000, torch.Generator().manual_seed(args.seed + 5))
 
@@ -173,8 +173,9 @@ def main():
 
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
-    write_points(out / "attitude_log.csv", space, train, format="quaternion", order="wxyz")
-    write_points(out / "samples.csv", space, samples, format="quaternion", order="wxyz")
+    quaternions = {"rotation_format": "quaternion", "quaternion_order": "wxyz"}
+    write_points(out / "attitude_log.csv", space, train, overwrite=True, **quaternions)
+    write_points(out / "samples.csv", space, samples, overwrite=True, **quaternions)
     plot_body_axes(train[:2000], samples, out / "body_axes.png")
     plot_rotation_vectors(space, train[:2000], samples, out / "rotation_vectors.png")
     model.save(out / "model", overwrite=True)

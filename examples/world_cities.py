@@ -3,7 +3,7 @@
 Provenance: geomstats (MIT licence) ships `datasets/data/cities/cities.json`
 with the latitude and longitude (degrees) of 50 large cities; we read the
 JSON directly with our own latitude/longitude reader (heatwalk's
-`lonlat_degrees` option) rather than geomstats' converter, so the frame is
+`lonlat` option) rather than geomstats' converter, so the frame is
 the usual one (x towards latitude 0, longitude 0; z to the north pole).
 With 50 points this is a small-data illustration: the model's samples
 spread around the populated regions.
@@ -38,7 +38,7 @@ def main():
     out.mkdir(parents=True, exist_ok=True)
     latlon, names = load_city_latlon()
     space = Sphere(2)
-    x = space.from_rows(latlon, lonlat_degrees=True)
+    x = space.from_rows(latlon, lonlat=True)
     print(f"loaded {len(names)} cities from geomstats, e.g. {', '.join(names[:3])}")
     model = heatwalk.fit(space, x, steps=a.steps, batch_size=50, network={"hidden": 128, "depth": 3})
     samples = model.sample(1000, steps=300)

@@ -35,6 +35,7 @@ import numpy as np
 import scipy.linalg
 import torch
 
+from heatwalk.checks import check_int, check_positive_number
 from heatwalk.errors import InputError
 
 DTYPE = torch.float64
@@ -230,7 +231,16 @@ class CTMC:
 
 
 def _check_n_rate(n: int, rate: float, minimum: int = 2) -> None:
-    if not isinstance(n, int) or isinstance(n, bool) or n < minimum:
-        raise InputError(f"number of states must be an integer >= {minimum}, got {n!r}", field="K")
-    if not (isinstance(rate, (int, float)) and math.isfinite(rate) and rate > 0):
-        raise InputError(f"rate must be a positive finite number, got {rate!r}", field="rate")
+    check_int("number of states K", n, minimum=minimum)
+    check_positive_number("rate", rate)
+
+
+def sample_categorical(probs: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
+    """One draw per row of the last axis of ``probs`` (rows sum to 1): int64 of shape probs.shape[:-1].
+
+    Inverse-CDF sampling with one uniform per row; rows need not be normalised exactly (the uniform
+    is scaled by the row total). Used by the chains' exact forward draws and by the discrete samplers.
+    """
+    cdf = probs.cumsum(-1)
+    u = torch.rand(probs.shape[:-1], dtype=probs.dtype, generator=generator).unsqueeze(-1) * cdf[..., -1:]
+    return (cdf <= u).sum(-1).clamp_max(probs.shape[-1] - 1)

@@ -4,7 +4,7 @@ From x_t, one step to s < t draws each position independently from
 
     p_θ(x_s | x_t) = Σ_a p_θ(x_0 = a | x_t) q(x_s | x_t, x_0 = a),
 
-computed by :meth:`Categories.posterior` with the network's x_0 probabilities.
+computed by the space's ``posterior`` with the network's x_0 probabilities.
 The grid is uniform in t from t_max (the prior) to t_min; the last step draws
 x_0 ~ p_θ(x_0 | x_{t_min}), the reconstruction model of the ELBO. For the
 absorbing chain this is exactly "unmask each masked position with probability
@@ -14,19 +14,21 @@ absorbing chain this is exactly "unmask each masked position with probability
 from __future__ import annotations
 
 import torch
-from tqdm.auto import tqdm
 
-from heatwalk.spaces.categories import sample_categorical
+from heatwalk.kernels.ctmc import sample_categorical
+from heatwalk.samplers.reverse_loop import reverse_loop
 
 
 def ancestral(field, n: int, steps: int = 100, generator: torch.Generator | None = None,
               progress: bool = True, x_init: torch.Tensor | None = None) -> torch.Tensor:
     """Draw n sequences (n, L) int64 with ``steps`` ancestral steps. ``x_init`` replaces the prior draw at t_max."""
     space = field.space
-    times = field.grid(steps)
-    x = space.prior_sample(n, generator) if x_init is None else x_init.clone()
-    for i in tqdm(range(steps), desc="sampling (ancestral)", disable=not progress, leave=False):
-        t, s = times[i], times[i + 1]
-        post = space.posterior(x, field.x0_probs(x, t), s, t)
-        x = sample_categorical(post, generator)
-    return sample_categorical(field.x0_probs(x, times[-1]), generator)
+
+    def step(x, i, t, s):
+        return sample_categorical(space.posterior(x, field.x0_probs(x, t), s, t), generator)
+
+    def finish(x, t_min):
+        return sample_categorical(field.x0_probs(x, t_min), generator)
+
+    return reverse_loop(field, n, steps, step, generator=generator, progress=progress, x_init=x_init,
+                        desc="sampling (ancestral)", finish=finish)

@@ -14,7 +14,8 @@ adds no noise (common practice: it removes a noise of scale sqrt(t_min)).
 from __future__ import annotations
 
 import torch
-from tqdm.auto import tqdm
+
+from heatwalk.samplers.reverse_loop import reverse_loop
 
 
 def reverse_step(field, x: torch.Tensor, t: torch.Tensor, t_next: torch.Tensor,
@@ -32,13 +33,11 @@ def geodesic_random_walk(field, n: int, steps: int = 500, generator: torch.Gener
                          progress: bool = True, x_init: torch.Tensor | None = None) -> torch.Tensor:
     """Draw n samples by the reverse geodesic random walk with ``steps`` steps.
 
-    ``field`` is a :class:`heatwalk.core.objectives.ScoreField`. ``x_init`` (optional)
+    ``field`` is a :class:`heatwalk.core.fields.ScoreField`. ``x_init`` (optional)
     replaces the draw from the prior at t_max.
     """
-    space = field.space
-    times = field.schedule.grid(steps)
-    x = space.prior_sample(n, generator) if x_init is None else x_init.clone()
-    with torch.no_grad():
-        for i in tqdm(range(steps), desc="sampling (random walk)", disable=not progress, leave=False):
-            x = reverse_step(field, x, times[i], times[i + 1], generator, noise=i < steps - 1)
-    return x
+    def step(x, i, t, t_next):
+        return reverse_step(field, x, t, t_next, generator, noise=i < steps - 1)
+
+    return reverse_loop(field, n, steps, step, generator=generator, progress=progress, x_init=x_init,
+                        desc="sampling (random walk)")

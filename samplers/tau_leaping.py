@@ -13,21 +13,22 @@ at t = 1). The last step draws x_0 ~ p_θ(x_0 | x_{t_min}).
 from __future__ import annotations
 
 import torch
-from tqdm.auto import tqdm
 
-from heatwalk.spaces.categories import sample_categorical
+from heatwalk.kernels.ctmc import sample_categorical
+from heatwalk.samplers.reverse_loop import reverse_loop
 
 
 def tau_leaping(field, n: int, steps: int = 100, generator: torch.Generator | None = None,
                 progress: bool = True, x_init: torch.Tensor | None = None) -> torch.Tensor:
     """Draw n sequences (n, L) int64 with ``steps`` tau-leaping steps."""
-    space = field.space
-    times = field.grid(steps)
-    x = space.prior_sample(n, generator) if x_init is None else x_init.clone()
-    for i in tqdm(range(steps), desc="sampling (tau-leaping)", disable=not progress, leave=False):
-        t, s = times[i], times[i + 1]
+    def step(x, i, t, s):
         rates = field.log_reverse_rates(x, 0.5 * (t + s)).exp()          # (n, L, S), 0 where no jump
         counts = torch.poisson((t - s) * rates, generator=generator)
         one = counts.sum(-1) == 1
-        x = torch.where(one, counts.argmax(-1), x)
-    return sample_categorical(field.x0_probs(x, times[-1]), generator)
+        return torch.where(one, counts.argmax(-1), x)
+
+    def finish(x, t_min):
+        return sample_categorical(field.x0_probs(x, t_min), generator)
+
+    return reverse_loop(field, n, steps, step, generator=generator, progress=progress, x_init=x_init,
+                        desc="sampling (tau-leaping)", finish=finish)

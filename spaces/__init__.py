@@ -1,13 +1,16 @@
-"""State spaces: geometry, validation and the forward heat flow of each.
+"""State spaces: what every space has (:class:`Space`), manifolds and finite state spaces.
 
-``from_config`` rebuilds a space from the JSON dictionary its ``config()``
-returns; each space registers its ``kind`` in ``SPACE_KINDS``.
+``SPACE_KINDS`` maps each space's ``kind`` to its class; ``from_config``
+rebuilds a space from the JSON dictionary its ``config()`` returns, and
+``register`` adds a space of your own.
 """
 
 from __future__ import annotations
 
 from heatwalk.errors import InputError
-from heatwalk.spaces.base import Space
+from heatwalk.spaces.base import Option, Space
+from heatwalk.spaces.manifold import IsotropicKernel, Manifold
+from heatwalk.spaces.finite import FiniteStateSpace
 from heatwalk.spaces.torus import Torus
 from heatwalk.spaces.sphere import Sphere
 from heatwalk.spaces.so3 import SO3
@@ -15,19 +18,20 @@ from heatwalk.spaces.simplex import Simplex
 from heatwalk.spaces.categories import Categories
 from heatwalk.spaces.euclidean import Euclidean
 
-SPACE_KINDS: dict[str, type] = {"torus": Torus}
-SPACE_KINDS["sphere"] = Sphere
-SPACE_KINDS["so3"] = SO3
-SPACE_KINDS["simplex"] = Simplex
-SPACE_KINDS["categories"] = Categories
-SPACE_KINDS["euclidean"] = Euclidean
+SPACE_KINDS: dict[str, type[Space]] = {
+    cls.kind: cls for cls in (Torus, Sphere, SO3, Simplex, Categories, Euclidean)
+}
 
-__all__ = ["Space", "Torus", "Sphere", "SPACE_KINDS", "from_config", "register"]
+__all__ = ["Space", "Manifold", "FiniteStateSpace", "IsotropicKernel", "Option", "Torus", "Sphere", "SO3",
+           "Simplex", "Categories", "Euclidean", "SPACE_KINDS", "from_config", "register"]
 
 
-def register(kind: str, cls: type) -> None:
-    """Make ``cls`` rebuildable from a config whose ``kind`` is ``kind``."""
-    SPACE_KINDS[kind] = cls
+def register(cls: type[Space]) -> type[Space]:
+    """Make ``cls`` rebuildable from a config whose ``kind`` is ``cls.kind`` (usable as a class decorator)."""
+    if not (isinstance(cls, type) and issubclass(cls, Space)):
+        raise InputError(f"register: expected a Space subclass, got {cls!r}", field="cls")
+    SPACE_KINDS[cls.kind] = cls
+    return cls
 
 
 def from_config(config: dict) -> Space:
@@ -37,8 +41,4 @@ def from_config(config: dict) -> Space:
     kind = config["kind"]
     if kind not in SPACE_KINDS:
         raise InputError(f"unknown space kind {kind!r}; known: {sorted(SPACE_KINDS)}", field="kind")
-    cls = SPACE_KINDS[kind]
-    args = {k: v for k, v in config.items() if k != "kind"}
-    if hasattr(cls, "from_config"):
-        return cls.from_config(args)
-    return cls(**args)
+    return SPACE_KINDS[kind].from_config({k: v for k, v in config.items() if k != "kind"})

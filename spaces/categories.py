@@ -22,8 +22,10 @@ state for ``process="absorbing"``, the stationary law of the given rates for
 Measure: counting measure on the K^L sequences; ``log_kernel`` and
 ``prior_log_prob`` are natural-log probabilities (nats).
 
-Geometry (exp, log, tangent vectors, score) is undefined on a finite set:
-those methods raise ``TypeError``. ``dist`` is the Hamming distance.
+A finite set has no geometry (exp, log, tangent vectors, score): ``Categories``
+is a :class:`~heatwalk.spaces.finite.FiniteStateSpace`, not a manifold, and its
+"score" role is played by the network's x_0 probabilities through the reverse
+rates. ``dist`` is the Hamming distance.
 """
 
 from __future__ import annotations
@@ -33,21 +35,17 @@ import math
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix
+from heatwalk.checks import check_choice, check_int, check_positive_int
+from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
-from heatwalk.spaces.base import Space
+from heatwalk.spaces.base import Option
+from heatwalk.spaces.finite import FiniteStateSpace
 
 PROCESSES = ("uniform", "absorbing", "rates")
+SEQUENCE_FORMATS = ("auto", "fasta", "text")
 
 
-def sample_categorical(probs: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
-    """One draw per row of the last axis of ``probs`` (rows sum to 1): int64 of shape probs.shape[:-1]."""
-    cdf = probs.cumsum(-1)
-    u = torch.rand(probs.shape[:-1], dtype=probs.dtype, generator=generator).unsqueeze(-1) * cdf[..., -1:]
-    return (cdf <= u).sum(-1).clamp_max(probs.shape[-1] - 1)
-
-
-class Categories(Space):
+class Categories(FiniteStateSpace):
     """Sequences of ``L`` tokens, each one of ``K`` states; stored as int64 tensors of shape (n, L).
 
     Parameters
@@ -63,19 +61,26 @@ class Categories(Space):
         samples can be written as text); state k is ``alphabet[k]``.
     """
 
-    objective_name = "discrete_elbo"
+    kind = "categories"
+    file_options = (
+        Option("sequence_format", str, "FASTA or one sequence per line", default="auto", choices=SEQUENCE_FORMATS),
+        Option("alphabet", str, "the states as a string of symbols (default: those that occur, sorted)"),
+        Option("length", int, "required sequence length (default: the first record's)"),
+        Option("uppercase", bool, "fold symbols to upper case"),
+    )
+    build_options = (
+        Option("process", str, "the forward chain: absorbing (masking) or uniform", default="absorbing",
+               choices=("absorbing", "uniform")),
+    )
 
     def __init__(self, K: int, L: int, process: str | None = None, rates=None, alphabet=None):
-        if not isinstance(K, int) or isinstance(K, bool) or K < 2:
-            raise InputError(f"Categories: K (number of states) must be an integer >= 2, got {K!r}", field="K")
-        if not isinstance(L, int) or isinstance(L, bool) or L < 1:
-            raise InputError(f"Categories: L (sequence length) must be a positive integer, got {L!r}", field="L")
+        check_int("Categories: K (number of states)", K, minimum=2)
+        check_positive_int("Categories: L (sequence length)", L)
         if process is None:
             # absorbing (masking) by default: on every source we measured its ELBO is far tighter than the
             # uniform chain's after the same training (benchmarks/discrete_elbo.py)
             process = "absorbing" if rates is None else "rates"
-        if process not in PROCESSES:
-            raise InputError(f"Categories: process must be one of {PROCESSES}, got {process!r}", field="process")
+        check_choice("Categories: process", process, PROCESSES)
         if (process == "rates") != (rates is not None):
             raise InputError("Categories: pass rates exactly when process='rates' "
                              f"(got process={process!r}, rates {'given' if rates is not None else 'missing'})",
@@ -97,12 +102,12 @@ class Categories(Space):
         self.n_states = self.chain.n_states          # K, or K + 1 with the mask state
         self.mask_state = K if process == "absorbing" else None
         self.stationary = self.chain.stationary      # the prior law of one position
-        self.dim = 0
         self.ambient_shape = (L,)
 
     @classmethod
-    def from_config(cls, args: dict) -> "Categories":
-        return cls(**args)
+    def from_alphabet(cls, alphabet, length: int, **build_options) -> "Categories":
+        """The space of sequences of ``length`` symbols of ``alphabet`` read from a file."""
+        return cls(len(alphabet), length, alphabet="".join(alphabet), **build_options)
 
     def config(self) -> dict:
         return {"kind": "categories", "K": self.K, "L": self.L, "process": self.process,
@@ -150,16 +155,16 @@ class Categories(Space):
         return t
 
     def from_rows(self, rows, **options) -> torch.Tensor:
-        if options:
-            raise InputError(f"Categories takes no reading options, got {sorted(options)}")
+        """A table of integer state codes (n, L)."""
+        self.check_file_options(options)
         return self.validate(rows)
 
     def to_rows(self, x, **options):
-        if options:
-            raise InputError(f"Categories takes no writing options, got {sorted(options)}")
+        self.check_file_options(options)
         return x
 
     def column_names(self, **options) -> list[str]:
+        self.check_file_options(options)
         return [f"pos{i}" for i in range(self.L)]
 
     def random_uniform(self, n, generator=None):
@@ -219,38 +224,33 @@ class Categories(Space):
         beta = 1.0 / ((1.0 - t) * self.chain.spectral_gap)
         return beta[..., None, None] * self.chain.rates
 
-    def _rows(self, t, n: int) -> torch.Tensor:
-        t = torch.as_tensor(t, dtype=DTYPE)
-        return t.expand(n) if t.dim() == 0 else t.reshape(n)
-
-    def sample_forward(self, x0, t, generator=None):
+    def _sample_forward(self, x0, t, generator=None):
         """Exact draw of x_t | x_0, independently at each position: (n, L) int64 in [0, n_states)."""
-        p = self.transition(self._rows(t, x0.shape[0]))  # (n, S, S)
+        p = self.transition(t)  # (n, S, S)
         probs = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))  # (n, L, S)
         return sample_categorical(probs, generator)
 
-    def log_kernel(self, xt, x0, t):
+    def _log_kernel(self, xt, x0, t):
         """log Pr(x_t | x_0) summed over positions, nats (counting measure); -inf where impossible."""
-        p = self.transition(self._rows(t, x0.shape[0]))
+        p = self.transition(t)
         rows = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))
         return torch.log(torch.gather(rows, 2, xt.unsqueeze(-1)).squeeze(-1)).sum(-1)
 
-    def x0_support(self, xt, t) -> torch.Tensor:
+    def _x0_support(self, xt, t) -> torch.Tensor:
         """(n, L, K) bool: data states a with Pr(x_t | x_0 = a) > 0 at each position."""
-        p = self.transition(self._rows(t, xt.shape[0]))[:, : self.K, :]  # (n, K, S)
+        p = self.transition(t)[:, : self.K, :]  # (n, K, S)
         return torch.gather(p, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2) > 0
 
-    def posterior(self, xt, x0_probs, s, t) -> torch.Tensor:
+    def _posterior(self, xt, x0_probs, s, t) -> torch.Tensor:
         """q(x_s | x_t) = Σ_a p(a) q(x_s | x_t, x_0 = a) at each position, for s < t: (n, L, n_states).
 
         ``x0_probs`` (n, L, K) are probabilities of the data states of x_0 (e.g. a network's
         prediction); states inconsistent with x_t (Pr(x_t | a) = 0) must carry zero mass. By
         Bayes, q(x_s = v | x_t, a) = P_{s→t}[v, x_t] P_s[a, v] / P_t[a, x_t].
         """
-        n = xt.shape[0]
-        ps = self.transition(self._rows(s, n))[:, : self.K, :]            # (n, K, S)
-        pt = self.transition(self._rows(t, n))[:, : self.K, :]            # (n, K, S)
-        pst = self.transition_between(self._rows(s, n), self._rows(t, n))  # (n, S, S)
+        ps = self.transition(s)[:, : self.K, :]            # (n, K, S)
+        pt = self.transition(t)[:, : self.K, :]            # (n, K, S)
+        pst = self.transition_between(s, t)                # (n, S, S)
         pt_x = torch.gather(pt, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2)  # (n, L, K)
         if bool(((x0_probs > 0) & (pt_x == 0)).any()):
             raise InputError("posterior: x0_probs put mass on states that cannot have produced x_t", field="x0_probs")
@@ -258,7 +258,7 @@ class Categories(Space):
         back = torch.gather(pst, 2, xt.unsqueeze(1).expand(-1, self.n_states, -1)).transpose(1, 2)  # (n, L, S)
         return back * (w @ ps)
 
-    def log_reverse_rates(self, xt, log_x0_probs, t) -> torch.Tensor:
+    def _log_reverse_rates(self, xt, log_x0_probs, t) -> torch.Tensor:
         """log of the reverse-time jump rates at time t, for each position and target state: (n, L, n_states).
 
         The time reversal of the chain jumps at position l from x_l to v at rate
@@ -266,8 +266,7 @@ class Categories(Space):
         x_0-prediction parametrisation), where p = exp(log_x0_probs) over the K data states;
         states a with P_t[a, x_l] = 0 are excluded. -inf where no jump is possible (and at v = x_l).
         """
-        n = xt.shape[0]
-        tt = self._rows(t, n)
+        tt = t
         lp = torch.log(self.transition(tt)[:, : self.K, :])                         # (n, K, S)
         lp_x = torch.gather(lp, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2)  # (n, L, K)
         ninf = torch.tensor(-math.inf, dtype=DTYPE)
@@ -282,9 +281,9 @@ class Categories(Space):
         jump = jump & (torch.arange(self.n_states) != xt.unsqueeze(-1))
         return torch.where(jump, torch.log(torch.where(jump, into, 1.0)) + torch.where(jump, ratio, 0.0), ninf)
 
-    def prior_kl(self, x0, t) -> torch.Tensor:
+    def _prior_kl(self, x0, t) -> torch.Tensor:
         """Σ_l KL(P_t[x0_l, ·] || π) in nats: the prior term of the ELBO (0 at t = 1). Shape (n,)."""
-        p = self.transition(self._rows(t, x0.shape[0]))
+        p = self.transition(t)
         rows = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))  # (n, L, S)
         pi = self.stationary
         with torch.no_grad():
@@ -300,36 +299,3 @@ class Categories(Space):
     def prior_log_prob(self, x):
         lp = torch.log(self.stationary)
         return lp[x].sum(-1)
-
-    # ----- undefined on a finite set ------------------------------------------------------------------
-    def _undefined(self, name):
-        raise TypeError(f"Categories.{name} is undefined on a finite state space (there is no tangent space "
-                        "or geodesic); the discrete ELBO objective and its samplers do not need it")
-
-    def project(self, x):
-        self._undefined("project")
-
-    def to_tangent(self, x, v):
-        self._undefined("to_tangent")
-
-    def exp(self, x, v):
-        self._undefined("exp")
-
-    def log(self, x, y):
-        self._undefined("log")
-
-    def inner(self, x, u, v):
-        self._undefined("inner")
-
-    def norm(self, x, v):
-        self._undefined("norm")
-
-    def tangent_basis(self, x):
-        self._undefined("tangent_basis")
-
-    def random_tangent(self, x, generator=None):
-        self._undefined("random_tangent")
-
-    def score(self, xt, x0, t):
-        raise TypeError("Categories.score is undefined on a finite state space (no gradient); its role is played "
-                        "by the network's x0 logits through log_reverse_rates")

@@ -13,13 +13,15 @@ import math
 
 import torch
 
+from heatwalk.checks import check_positive_int, check_positive_number
 from heatwalk.errors import InputError
-from heatwalk.spaces.base import DTYPE, Space, as_points, broadcast_time
+from heatwalk.spaces.base import DTYPE, as_points
+from heatwalk.spaces.manifold import Manifold
 
 LOG_TWO_PI = math.log(2.0 * math.pi)
 
 
-class Euclidean(Space):
+class Euclidean(Manifold):
     """Points of R^d, shape (..., d); flat metric, densities w.r.t. Lebesgue measure on R^d.
 
     Forward process: Brownian motion with generator (1/2)Δ, x_t | x_0 ~ N(x_0, t I_d).
@@ -33,18 +35,22 @@ class Euclidean(Space):
     space's.
     """
 
+    kind = "euclidean"
+
     def __init__(self, d: int = 2, t_max: float = 100.0):
-        if not isinstance(d, int) or isinstance(d, bool) or d < 1:
-            raise InputError(f"Euclidean: d must be a positive integer, got {d!r}", field="d")
-        if isinstance(t_max, bool) or not isinstance(t_max, (int, float)) or not (0 < t_max < math.inf):
-            raise InputError(f"Euclidean: t_max must be a positive finite number, got {t_max!r}", field="t_max")
-        self.d = d
-        self.t_max = float(t_max)
+        self.d = check_positive_int("Euclidean: d", d)
+        self.t_max = check_positive_number("Euclidean: t_max", t_max)
         self.dim = d
         self.ambient_shape = (d,)
 
     def config(self) -> dict:
         return {"kind": "euclidean", "d": self.d, "t_max": self.t_max}
+
+    @classmethod
+    def from_table(cls, n_columns: int, **options) -> "Euclidean":
+        """One coordinate per column."""
+        cls.check_file_options(options)
+        return cls(n_columns)
 
     # --- geometry --------------------------------------------------------------------------
     def validate(self, x) -> torch.Tensor:
@@ -95,19 +101,18 @@ class Euclidean(Space):
         # t_min = 1e-4: noise standard deviation 0.01 of a unit-variance (standardised) coordinate
         return (1e-4, self.t_max)
 
-    def sample_forward(self, x0, t, generator=None):
-        t = broadcast_time(t, x0, 1).unsqueeze(-1)
+    def _sample_forward(self, x0, t, generator=None):
+        t = t.unsqueeze(-1)
         z = torch.randn(x0.shape, dtype=x0.dtype, device=x0.device, generator=generator)
         return x0 + t.sqrt() * z
 
-    def log_kernel(self, xt, x0, t):
+    def _log_kernel(self, xt, x0, t):
         """log N(xt; x0, t I) in nats, w.r.t. Lebesgue measure."""
-        t = broadcast_time(t, xt, 1)
         r2 = (xt - x0).square().sum(-1)
         return -0.5 * r2 / t - 0.5 * self.d * (LOG_TWO_PI + torch.log(t))
 
-    def score(self, xt, x0, t):
-        t = broadcast_time(t, xt, 1).unsqueeze(-1)
+    def _score(self, xt, x0, t):
+        t = t.unsqueeze(-1)
         return -(xt - x0) / t
 
     def prior_sample(self, n, generator=None):

@@ -83,9 +83,11 @@ from functools import lru_cache
 
 import torch
 
+from heatwalk.checks import check_int, check_positive_number
 from heatwalk.errors import InputError
 from heatwalk.kernels.ornstein_uhlenbeck import ou_log_prob_and_score, ou_sample, standard_normal_log_prob
-from heatwalk.spaces.base import DTYPE, Space, as_points, broadcast_time, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.manifold import Manifold
 
 #: rows whose parts sum to within this of 1 are rescaled to sum exactly 1; others are rejected
 SUM_TOLERANCE = 1e-6
@@ -133,7 +135,7 @@ def ilr_inverse(y: torch.Tensor) -> torch.Tensor:
     return torch.softmax(y @ h, dim=-1)
 
 
-class Simplex(Space):
+class Simplex(Manifold):
     """Compositions of K ≥ 2 positive parts summing to 1; shape (..., K); intrinsic dimension K-1.
 
     Aitchison geometry (flat, isometric to R^{K-1} through ilr); forward process
@@ -147,10 +149,15 @@ class Simplex(Space):
     tolerance are rescaled to sum exactly 1.
     """
 
+    kind = "simplex"
+    file_options = (
+        Option("zero_replacement", float, "replace parts that are exactly 0 by DELTA (multiplicative replacement)",
+               metavar="DELTA"),
+        Option("rescale", bool, "divide each row by its total (amounts, percentages, rounded shares)"),
+    )
+
     def __init__(self, K: int = 3):
-        if not isinstance(K, int) or isinstance(K, bool) or K < 2:
-            raise InputError(f"Simplex: K (number of parts) must be an integer >= 2, got {K!r}", field="K")
-        self.K = K
+        self.K = check_int("Simplex: K (number of parts)", K, minimum=2)
         self.dim = K - 1
         self.ambient_shape = (K,)
 
@@ -158,6 +165,12 @@ class Simplex(Space):
         return {"kind": "simplex", "K": self.K}
 
     # --- file rows -------------------------------------------------------------------------
+    @classmethod
+    def from_table(cls, n_columns: int, **options) -> "Simplex":
+        """One part per column."""
+        cls.check_file_options(options)
+        return cls(n_columns)
+
     def from_rows(self, rows, *, zero_replacement: float | None = None, rescale: bool = False) -> torch.Tensor:
         """Read compositions from an (n, K) float array.
 
@@ -181,10 +194,7 @@ class Simplex(Space):
         Raises :class:`InputError` naming the row (and column) of the first problem.
         """
         if zero_replacement is not None:
-            if isinstance(zero_replacement, bool) or not isinstance(zero_replacement, (int, float)) \
-                    or not math.isfinite(zero_replacement) or not zero_replacement > 0:
-                raise InputError(f"zero_replacement must be a positive number δ (or None to reject zero parts), "
-                                 f"got {zero_replacement!r}", field="zero_replacement")
+            check_positive_number("zero_replacement", zero_replacement)
             if zero_replacement * self.K >= 1:
                 raise InputError(f"zero_replacement δ = {zero_replacement:g} is too large for K = {self.K} parts: "
                                  f"needs δ < 1/K = {1 / self.K:g}", field="zero_replacement")
@@ -205,31 +215,35 @@ class Simplex(Space):
         if i is not None:
             if zero_replacement is None:
                 self._raise_zero(x, i)
-            delta = float(zero_replacement)
-            k = zero.sum(-1, keepdim=True).to(DTYPE)
-            smallest = torch.where(zero, torch.full_like(x, math.inf), x).min(-1).values
-            bad = zero.any(-1) & (smallest <= delta)
-            i = first_bad_row(bad)
-            if i is not None:
-                raise InputError(f"row {i}: zero_replacement δ = {delta:g} is not smaller than the row's smallest "
-                                 f"non-zero part {float(smallest[i]):g}; choose δ below the detection limit of the "
-                                 f"data", row=i, field="zero_replacement")
-            bad = k.squeeze(-1) * delta >= 1
-            i = first_bad_row(bad)
-            if i is not None:
-                raise InputError(f"row {i}: {int(k[i])} zero parts times δ = {delta:g} is not below 1", row=i,
-                                 field="zero_replacement")
-            x = torch.where(zero, torch.full_like(x, delta), (1 - k * delta) * x)
+            x = self._replace_zeros(x, zero, float(zero_replacement))
         return self.validate(x)
 
     def to_rows(self, x: torch.Tensor, **options) -> torch.Tensor:
-        """Compositions as rows of K parts summing to 1 (no writing options)."""
+        """Compositions as rows of K parts summing to 1 (the reading options do not change how rows are written)."""
         return super().to_rows(x, **options)
 
     def column_names(self, **options) -> list[str]:
-        if options:
-            raise InputError(f"Simplex takes no writing options, got {sorted(options)}")
+        self.check_file_options(options)
         return [f"part{i}" for i in range(self.K)]
+
+    @staticmethod
+    def _replace_zeros(x: torch.Tensor, zero: torch.Tensor, delta: float) -> torch.Tensor:
+        """Multiplicative replacement of the zero parts by δ (see :meth:`from_rows`)."""
+        k = zero.sum(-1, keepdim=True).to(DTYPE)
+        smallest = torch.where(zero, torch.full_like(x, math.inf), x).min(-1).values
+        bad = zero.any(-1) & (smallest <= delta)
+        i = first_bad_row(bad)
+        if i is not None:
+            raise InputError(f"row {i}: zero_replacement δ = {delta:g} is not smaller than the row's smallest "
+                             f"non-zero part {float(smallest[i]):g}; choose δ below the detection limit of the "
+                             f"data", row=i, field="zero_replacement")
+        bad = k.squeeze(-1) * delta >= 1
+        i = first_bad_row(bad)
+        if i is not None:
+            raise InputError(f"row {i}: {int(k[i])} zero parts times δ = {delta:g} is not below 1", row=i,
+                             field="zero_replacement")
+        x = torch.where(zero, torch.full_like(x, delta), (1 - k * delta) * x)
+        return x
 
     # --- validation ------------------------------------------------------------------------
     @staticmethod
@@ -357,19 +371,16 @@ class Simplex(Space):
         """f(x) = -(1/2) clr(x): the Ornstein–Uhlenbeck pull towards the centre (1/K, …, 1/K)."""
         return -0.5 * clr(x)
 
-    def sample_forward(self, x0, t, generator=None):
+    def _sample_forward(self, x0, t, generator=None):
         """Exact draw: ilr(x_t) = e^{-t/2} ilr(x0) + sqrt(1 - e^{-t}) z, z ~ N(0, I_{K-1})."""
-        t = broadcast_time(t, x0, 1)
         return ilr_inverse(ou_sample(ilr(x0), t, generator))
 
-    def log_kernel(self, xt, x0, t):
+    def _log_kernel(self, xt, x0, t):
         """log N(ilr(xt); e^{-t/2} ilr(x0), (1 - e^{-t}) I) in nats, w.r.t. the Aitchison volume."""
-        t = broadcast_time(t, xt, 1)
         return ou_log_prob_and_score(ilr(xt), ilr(x0), t)[0]
 
-    def score(self, xt, x0, t):
+    def _score(self, xt, x0, t):
         """Aitchison gradient of ``log_kernel`` in xt, as a clr vector: H^T (-(y - e^{-t/2} y0) / (1 - e^{-t}))."""
-        t = broadcast_time(t, xt, 1)
         s = ou_log_prob_and_score(ilr(xt), ilr(x0), t)[1]
         return s @ _helmert(self.K).to(xt.device, xt.dtype)
 

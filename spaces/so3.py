@@ -8,7 +8,8 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.kernels.igso3 import LOG_VOLUME, igso3_log_prob_and_dlog, igso3_sample_angle
-from heatwalk.spaces.base import DTYPE, Space, as_points, broadcast_time, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.manifold import IsotropicKernel, Manifold
 
 #: validate: rows with max |x^T x - I| above this are rejected, below it projected onto SO(3)
 ORTHOGONALITY_TOLERANCE = 1e-6
@@ -104,7 +105,7 @@ def rotation_angle(r: torch.Tensor) -> torch.Tensor:
     return 2 * torch.atan2(torch.linalg.vector_norm(q[..., 1:], dim=-1), q[..., 0])
 
 
-class SO3(Space):
+class SO3(IsotropicKernel, Manifold):
     """Rotations of R^3 as 3x3 matrices with det +1; shape (..., 3, 3).
 
     Metric: bi-invariant, <x[a]_×, x[b]_×> = a·b = (1/2) tr(u^T v) on tangent
@@ -120,52 +121,73 @@ class SO3(Space):
     the Riemannian volume, in nats. The prior is the uniform (Haar) law.
     """
 
+    kind = "so3"
     dim = 3
     ambient_shape = (3, 3)
+    file_options = (
+        Option("rotation_format", str, "rotations as 9 matrix entries (row-major), 4 quaternion components or a "
+               "rotation vector", default="matrix", choices=FORMATS),
+        Option("quaternion_order", str, "quaternion component order, scalar first or last (required for "
+               "quaternions: there is no default)", choices=ORDERS),
+        Option("degrees", bool, "rotation vectors are in degrees (default: radians)"),
+    )
 
     def config(self) -> dict:
         return {"kind": "so3"}
 
     # --- file rows -------------------------------------------------------------------------
+    @classmethod
+    def from_table(cls, n_columns: int, **options) -> "SO3":
+        """SO(3) whatever the format; the column count is checked against the format when reading."""
+        cls.check_file_options(options)
+        return cls()
+
     @staticmethod
     def _check_options(format, order, degrees) -> None:
         if format not in FORMATS:
-            raise InputError(f"unknown rotation format {format!r}; expected one of {list(FORMATS)}", field="format")
+            raise InputError(f"unknown rotation format {format!r}; expected one of {list(FORMATS)}",
+                             field="rotation_format")
         if format == "quaternion":
             if order is None:
-                raise InputError("quaternion component order must be stated: wxyz or xyzw", field="order")
+                raise InputError("quaternion component order must be stated: wxyz or xyzw",
+                                 field="quaternion_order")
             if order not in ORDERS:
-                raise InputError(f"quaternion component order must be wxyz or xyzw, got {order!r}", field="order")
+                raise InputError(f"quaternion component order must be wxyz or xyzw, got {order!r}",
+                                 field="quaternion_order")
         elif order is not None:
-            raise InputError(f"order applies to quaternions only, got order={order!r} with format {format!r}",
-                             field="order")
+            raise InputError(f"quaternion_order applies to quaternions only, got {order!r} with rotation_format "
+                             f"{format!r}", field="quaternion_order")
         if degrees and format != "rotvec":
-            raise InputError(f"degrees applies to format 'rotvec' only, got format {format!r}", field="degrees")
+            raise InputError(f"degrees applies to format 'rotvec' only, got rotation_format {format!r}", field="degrees")
 
-    def n_columns_for(self, *, format: str = "matrix", order: str | None = None, degrees: bool = False) -> int:
+    def n_columns_for(self, *, rotation_format: str = "matrix", quaternion_order: str | None = None,
+                      degrees: bool = False) -> int:
         """Columns one rotation takes in a file: 9 (matrix), 4 (quaternion) or 3 (rotvec)."""
+        format, order = rotation_format, quaternion_order
         self._check_options(format, order, degrees)
         return _COLUMNS[format]
 
-    def from_rows(self, rows, *, format: str = "matrix", order: str | None = None, degrees: bool = False) -> torch.Tensor:
+    def from_rows(self, rows, *, rotation_format: str = "matrix", quaternion_order: str | None = None,
+                  degrees: bool = False) -> torch.Tensor:
         """Read rotations from an (n, columns) float array.
 
         Parameters
         ----------
-        format : "matrix" (9 columns, the matrix row-major), "quaternion"
+        rotation_format : "matrix" (9 columns, the matrix row-major), "quaternion"
             (4 columns, unit quaternion; rows with | |q| - 1 | ≤ 1e-6 are
             normalised, others and zero rows rejected) or "rotvec" (3
             columns, rotation vector axis·angle, any length).
-        order : "wxyz" or "xyzw", required for quaternions (scalar first or last).
+        quaternion_order : "wxyz" or "xyzw", required for quaternions (scalar first or last).
         degrees : rotation vectors in degrees instead of radians.
 
         Matrices go through :meth:`validate`. Raises :class:`InputError` naming the row.
         """
-        ncol = self.n_columns_for(format=format, order=order, degrees=degrees)
+        format, order = rotation_format, quaternion_order
+        ncol = self.n_columns_for(rotation_format=format, quaternion_order=order, degrees=degrees)
         rows = torch.as_tensor(rows, dtype=DTYPE)
         if rows.dim() != 2 or rows.shape[1] != ncol:
-            raise InputError(f"format {format!r} takes {ncol} columns per row, got an array of shape "
-                             f"{tuple(rows.shape)}", field="format")
+            raise InputError(f"rotation_format {format!r} takes {ncol} columns per row, got an array of shape "
+                             f"{tuple(rows.shape)}", field="rotation_format")
         rows = as_points(rows, (ncol,), f"{format} rows")
         if format == "matrix":
             return self.validate(rows.reshape(-1, 3, 3))
@@ -182,9 +204,10 @@ class SO3(Space):
                              f"by more than {UNIT_TOLERANCE:g}", row=i)
         return quaternion_to_matrix(q / norm.unsqueeze(-1))
 
-    def to_rows(self, x: torch.Tensor, *, format: str = "matrix", order: str | None = None,
+    def to_rows(self, x: torch.Tensor, *, rotation_format: str = "matrix", quaternion_order: str | None = None,
                 degrees: bool = False) -> torch.Tensor:
         """Inverse of :meth:`from_rows`. Quaternions are written with w ≥ 0; rotation vectors have length ≤ π (180°)."""
+        format, order = rotation_format, quaternion_order
         self._check_options(format, order, degrees)
         if format == "matrix":
             return x.reshape(x.shape[0], 9)
@@ -194,7 +217,9 @@ class SO3(Space):
         q = matrix_to_quaternion(x)
         return q if order == "wxyz" else q[:, [1, 2, 3, 0]]
 
-    def column_names(self, *, format: str = "matrix", order: str | None = None, degrees: bool = False) -> list[str]:
+    def column_names(self, *, rotation_format: str = "matrix", quaternion_order: str | None = None,
+                     degrees: bool = False) -> list[str]:
+        format, order = rotation_format, quaternion_order
         self._check_options(format, order, degrees)
         if format == "matrix":
             return [f"r{i}{j}" for i in range(1, 4) for j in range(1, 4)]
@@ -283,31 +308,35 @@ class SO3(Space):
         # t_max: the slowest mode (l = 1, weight 3 e^{-t} χ_1, |χ_1| ≤ 3) is below 9 e^{-10} = 4e-4 of the uniform density
         return (1e-4, 10.0)
 
-    def sample_forward(self, x0, t, generator=None):
+    def _sample_forward(self, x0, t, generator=None):
         """x0 · Exp(w a): angle w from the exact IGSO(3) angle law, axis a uniform on S^2."""
-        t = broadcast_time(t, x0, 2)
-        w = igso3_sample_angle(t.reshape(-1), generator).reshape(t.shape)
+        w = igso3_sample_angle(t, generator)
         axis = torch.randn(*t.shape, 3, dtype=DTYPE, device=x0.device, generator=generator)
         axis = axis / torch.linalg.vector_norm(axis, dim=-1, keepdim=True)
         return x0 @ exp_so3(w.unsqueeze(-1) * axis)
 
-    def log_kernel(self, xt, x0, t):
-        t = broadcast_time(t, xt, 2)
+    def _radial_coordinates(self, xt, x0):
+        v = self.log(xt, x0)
+        return self.norm(xt, v), v
+
+    def _log_kernel(self, xt, x0, t):
         return igso3_log_prob_and_dlog(self.dist(x0, xt), t)[0]
 
-    def score(self, xt, x0, t):
-        """(d/dw log p_t)(w) · grad_xt w, with grad_xt w = -log(xt, x0)/w (w = dist(x0, xt)).
+    def _radial_log_kernel(self, w, t):
+        """IGSO(3) log-density and d/dw at angle w; d/dw log p is odd in w, so it is 0 at w = 0."""
+        positive = w > 0
+        lp, d = igso3_log_prob_and_dlog(torch.where(positive, w, torch.ones_like(w)), t)
+        if not bool(positive.all()):
+            lp = torch.where(positive, lp, igso3_log_prob_and_dlog(w, t)[0])
+        return lp, torch.where(positive, d, torch.zeros_like(d))
 
-        Finite at w = 0 (d/dw log p_t is odd in w) and 0 there; at w = π the
-        derivative vanishes, so the choice of log is immaterial.
-        """
-        return self.log_kernel_and_score(xt, x0, t)[1]
+    # --- pictures --------------------------------------------------------------------------
+    def plot_coordinates(self, x):
+        """Rotation axis directions as longitude/latitude in degrees (the angle is not shown)."""
+        import numpy as np
 
-    def log_kernel_and_score(self, xt, x0, t):
-        t = broadcast_time(t, xt, 2)
-        v = self.log(xt, x0)
-        w = self.norm(xt, v)
-        w_safe = torch.where(w > 0, w, torch.ones_like(w))
-        lp, d = igso3_log_prob_and_dlog(w_safe, t)
-        lp = torch.where(w > 0, lp, igso3_log_prob_and_dlog(w, t)[0])
-        return lp, (-d / w_safe)[..., None, None] * v
+        axis = vee(x).numpy()
+        axis /= np.maximum(np.linalg.norm(axis, axis=1, keepdims=True), 1e-12)
+        lat = np.degrees(np.arcsin(np.clip(axis[:, 2], -1, 1)))
+        lon = np.degrees(np.arctan2(axis[:, 1], axis[:, 0]))
+        return np.stack([lon, lat], 1), ("axis longitude (deg)", "axis latitude (deg)"), ((-180, 180), (-90, 90))

@@ -6,9 +6,11 @@ import math
 
 import torch
 
+from heatwalk.checks import check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.kernels.sphere_heat import log_sphere_area, sample_sphere_radius, sphere_heat_log_prob_and_score
-from heatwalk.spaces.base import DTYPE, Space, as_points, broadcast_time, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.manifold import IsotropicKernel, Manifold
 
 #: points whose norm is within this of 1 are renormalised by ``validate``; others are rejected
 NORM_TOLERANCE = 1e-6
@@ -16,7 +18,7 @@ NORM_TOLERANCE = 1e-6
 _ORTHOGONAL_FLOOR = 8 * float(torch.finfo(DTYPE).eps)
 
 
-class Sphere(Space):
+class Sphere(IsotropicKernel, Manifold):
     """Unit vectors of R^{d+1}, shape (..., d+1); intrinsic dimension d ≥ 1.
 
     Metric: the round metric induced from R^{d+1} (geodesic distance = angle
@@ -39,10 +41,11 @@ class Sphere(Space):
     map ``Sphere(1)`` and ``Torus(1)`` have the same kernel.
     """
 
+    kind = "sphere"
+    file_options = (Option("lonlat", bool, "S^2 as two columns latitude, longitude in degrees"),)
+
     def __init__(self, d: int = 2):
-        if not isinstance(d, int) or isinstance(d, bool) or d < 1:
-            raise InputError(f"Sphere: d must be an integer >= 1, got {d!r}", field="d")
-        self.d = d
+        self.d = check_positive_int("Sphere: d", d)
         self.dim = d
         self.ambient_shape = (d + 1,)
 
@@ -50,14 +53,19 @@ class Sphere(Space):
         return {"kind": "sphere", "d": self.d}
 
     # --- file rows -------------------------------------------------------------------------
-    def from_rows(self, rows, *, lonlat_degrees: bool = False) -> torch.Tensor:
-        """Rows of d+1 coordinates of unit vectors; for S^2, ``lonlat_degrees=True`` reads two
+    @classmethod
+    def from_table(cls, n_columns: int, *, lonlat: bool = False) -> "Sphere":
+        """S^{n_columns - 1} from unit vectors, or S^2 from latitude/longitude columns."""
+        return cls(2) if lonlat else cls(n_columns - 1)
+
+    def from_rows(self, rows, *, lonlat: bool = False) -> torch.Tensor:
+        """Rows of d+1 coordinates of unit vectors; for S^2, ``lonlat=True`` reads two
         columns (latitude, longitude) in degrees, latitude in [-90, 90], longitude in [-360, 360]."""
-        if not lonlat_degrees:
+        if not lonlat:
             return self.validate(rows)
         if self.d != 2:
             raise InputError(f"Sphere(d={self.d}): latitude/longitude rows are only defined for d = 2",
-                             field="lonlat_degrees")
+                             field="lonlat")
         x = as_points(rows, (2,), "latitude/longitude rows")
         for j, (name, limit) in enumerate((("latitude", 90.0), ("longitude", 360.0))):
             i = first_bad_row(x[:, j].abs() > limit)
@@ -68,19 +76,19 @@ class Sphere(Space):
         pts = torch.stack([torch.cos(lat) * torch.cos(lon), torch.cos(lat) * torch.sin(lon), torch.sin(lat)], -1)
         return self.project(pts)
 
-    def to_rows(self, x: torch.Tensor, *, lonlat_degrees: bool = False) -> torch.Tensor:
+    def to_rows(self, x: torch.Tensor, *, lonlat: bool = False) -> torch.Tensor:
         """Inverse of :meth:`from_rows`; longitudes are written in (-180, 180]."""
-        if not lonlat_degrees:
+        if not lonlat:
             return x.reshape(x.shape[0], -1)
         if self.d != 2:
             raise InputError(f"Sphere(d={self.d}): latitude/longitude rows are only defined for d = 2",
-                             field="lonlat_degrees")
+                             field="lonlat")
         lat = torch.atan2(x[:, 2], torch.hypot(x[:, 0], x[:, 1]))
         lon = torch.atan2(x[:, 1], x[:, 0])
         return torch.rad2deg(torch.stack([lat, lon], -1))
 
-    def column_names(self, *, lonlat_degrees: bool = False) -> list[str]:
-        if lonlat_degrees:
+    def column_names(self, *, lonlat: bool = False) -> list[str]:
+        if lonlat:
             return ["latitude_deg", "longitude_deg"]
         return [f"x{i}" for i in range(self.d + 1)]
 
@@ -171,30 +179,23 @@ class Sphere(Space):
         # t_max: the slowest eigenmode exp(-d t/2) has decayed to 1e-5
         return (1e-4, 2 * math.log(1e5) / self.d)
 
-    def sample_forward(self, x0, t, generator=None):
-        t = broadcast_time(t, x0, 1)
+    def _sample_forward(self, x0, t, generator=None):
         r = sample_sphere_radius(t, self.d, generator)
         direction = self.random_tangent(x0, generator)
         direction = direction / torch.linalg.vector_norm(direction, dim=-1, keepdim=True)
         return self.exp(x0, r.unsqueeze(-1) * direction)
 
-    def _radial(self, xt, x0, t):
-        t = broadcast_time(t, xt, 1)
-        r = self.dist(xt, x0)
-        logp, dlogp = sphere_heat_log_prob_and_score(r, t, self.d)
-        return r, logp, dlogp
+    def _radial_log_kernel(self, r, t):
+        return sphere_heat_log_prob_and_score(r, t, self.d)
 
-    def log_kernel(self, xt, x0, t):
-        return self._radial(xt, x0, t)[1]
+    # --- pictures --------------------------------------------------------------------------
+    def plot_coordinates(self, x):
+        """S^2: longitude and latitude in degrees (plate carrée); other dimensions: no picture."""
+        if self.d != 2:
+            return None
+        import numpy as np
 
-    def score(self, xt, x0, t):
-        return self.log_kernel_and_score(xt, x0, t)[1]
-
-    def log_kernel_and_score(self, xt, x0, t):
-        # grad_xt r = -log_xt(x0) / r; d/dr log p vanishes at r = 0 and r = π, where the direction is undefined
-        r, logp, dlogp = self._radial(xt, x0, t)
-        r = r.unsqueeze(-1)
-        dlogp = dlogp.unsqueeze(-1)
-        ratio = torch.where(r > 0, dlogp / torch.where(r > 0, r, torch.ones_like(r)), torch.zeros_like(r))
-        at_antipode = (r >= math.pi)
-        return logp, torch.where(at_antipode, torch.zeros_like(xt), -ratio * self.log(xt, x0))
+        v = x.numpy()
+        lat = np.degrees(np.arcsin(np.clip(v[:, 2], -1, 1)))
+        lon = np.degrees(np.arctan2(v[:, 1], v[:, 0]))
+        return np.stack([lon, lat], 1), ("longitude (deg)", "latitude (deg)"), ((-180, 180), (-90, 90))

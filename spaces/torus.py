@@ -6,15 +6,17 @@ import math
 
 import torch
 
+from heatwalk.checks import check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.kernels.wrapped_normal import LOG_TWO_PI, TWO_PI, wrap_angle, wrapped_normal_log_prob_and_score
-from heatwalk.spaces.base import DTYPE, Space, as_points, broadcast_time, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.manifold import Manifold
 
-#: inputs further than this outside [-π, π) (in units of π) are taken to be in the wrong unit
-ANGLE_LIMIT_TURNS = 2.0
+#: inputs of larger magnitude than this (radians) are taken to be in the wrong unit
+ANGLE_LIMIT_RADIANS = 2 * math.pi
 
 
-class Torus(Space):
+class Torus(Manifold):
     """n angles in radians, stored wrapped to [-π, π); shape (..., n).
 
     Metric: flat, each angle measured by arc length, so the total volume is
@@ -27,10 +29,12 @@ class Torus(Space):
     probably being in the wrong unit.
     """
 
+    kind = "torus"
+    file_options = (Option("degrees", bool, "angles are in degrees (default: radians)"),)
+    capabilities = frozenset({"angles"})
+
     def __init__(self, n: int = 1):
-        if not isinstance(n, int) or n < 1:
-            raise InputError(f"Torus: n must be a positive integer, got {n!r}", field="n")
-        self.n = n
+        self.n = check_positive_int("Torus: n", n)
         self.dim = n
         self.ambient_shape = (n,)
 
@@ -38,10 +42,16 @@ class Torus(Space):
         return {"kind": "torus", "n": self.n}
 
     # --- file rows -------------------------------------------------------------------------
+    @classmethod
+    def from_table(cls, n_columns: int, **options) -> "Torus":
+        """One angle per column."""
+        cls.check_file_options(options)
+        return cls(n_columns)
+
     def from_rows(self, rows, *, degrees: bool = False) -> torch.Tensor:
         """Rows of n angles; ``degrees=True`` reads degrees instead of radians."""
         x = as_points(rows, self.ambient_shape, "angles")
-        unit, limit = ("degrees", 360.0 * ANGLE_LIMIT_TURNS / 2) if degrees else ("radians", math.pi * ANGLE_LIMIT_TURNS)
+        unit, limit = ("degrees", math.degrees(ANGLE_LIMIT_RADIANS)) if degrees else ("radians", ANGLE_LIMIT_RADIANS)
         far = (x.abs() > limit * (1 + 1e-12)).any(dim=1)
         i = first_bad_row(far)
         if i is not None:
@@ -64,7 +74,7 @@ class Torus(Space):
     # --- geometry --------------------------------------------------------------------------
     def validate(self, x) -> torch.Tensor:
         x = as_points(x, self.ambient_shape, "angles")
-        far = (x.abs() > math.pi * ANGLE_LIMIT_TURNS * (1 + 1e-12)).any(dim=1)
+        far = (x.abs() > ANGLE_LIMIT_RADIANS * (1 + 1e-12)).any(dim=1)
         i = first_bad_row(far)
         if i is not None:
             raise InputError(
@@ -113,21 +123,28 @@ class Torus(Space):
         # t_max: the slowest Fourier mode exp(-t/2) has decayed to ~3e-5 (TV distance < 1e-4 n)
         return (1e-4, 20.0)
 
-    def sample_forward(self, x0, t, generator=None):
-        t = broadcast_time(t, x0, 1).unsqueeze(-1)
+    def _sample_forward(self, x0, t, generator=None):
         z = torch.randn(x0.shape, dtype=x0.dtype, device=x0.device, generator=generator)
-        return wrap_angle(x0 + t.sqrt() * z)
+        return wrap_angle(x0 + t.unsqueeze(-1).sqrt() * z)
 
     def _per_angle(self, xt, x0, t):
-        t = broadcast_time(t, xt, 1).unsqueeze(-1)
-        return wrapped_normal_log_prob_and_score(wrap_angle(xt - x0), t.expand_as(xt))
+        return wrapped_normal_log_prob_and_score(wrap_angle(xt - x0), t.unsqueeze(-1).expand_as(xt))
 
-    def log_kernel(self, xt, x0, t):
+    def _log_kernel(self, xt, x0, t):
         return self._per_angle(xt, x0, t)[0].sum(-1)
 
-    def score(self, xt, x0, t):
+    def _score(self, xt, x0, t):
         return self._per_angle(xt, x0, t)[1]
 
-    def log_kernel_and_score(self, xt, x0, t):
+    def _log_kernel_and_score(self, xt, x0, t):
         lp, sc = self._per_angle(xt, x0, t)
         return lp.sum(-1), sc
+
+    # --- pictures --------------------------------------------------------------------------
+    def plot_coordinates(self, x):
+        """The first two angles (radians) on [-π, π)²; a single angle is drawn against 0."""
+        import numpy as np
+
+        a = x[:, :2].numpy() if self.n >= 2 else np.stack([x[:, 0].numpy(), np.zeros(x.shape[0])], 1)
+        lim = (-math.pi, math.pi)
+        return a, ("angle 0 (rad)", "angle 1 (rad)" if self.n >= 2 else ""), (lim, lim)

@@ -5,8 +5,9 @@ import math
 import pytest
 import torch
 
-from heatwalk.core.objectives import ScoreField
-from heatwalk.samplers.probability_flow import FlowField, log_likelihood, probability_flow
+from heatwalk.core.fields import ScoreField
+from heatwalk.samplers.flow_ode import FlowField, log_likelihood
+from heatwalk.samplers.probability_flow import probability_flow
 from heatwalk.core.schedule import TimeSchedule
 from heatwalk.spaces import SO3, Sphere, Torus
 

@@ -12,7 +12,7 @@ import sys
 import numpy as np
 import pytest
 
-from heatwalk.frontend.metrics import median_bandwidth, mmd, mmd_with_floor
+from heatwalk.frontend.metrics import median_bandwidth, mmd_squared, mmd_with_floor
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "benchmarks"))
 
@@ -32,11 +32,11 @@ def test_mmd_same_law_within_noise_and_different_laws_positive(name):
     space = p.space
     ref = p.sample(N, 0)
     bw = median_bandwidth(space, ref)
-    noise = [mmd(space, p.sample(N, 10 + 2 * r), p.sample(N, 11 + 2 * r), bw) for r in range(8)]
+    noise = [mmd_squared(space, p.sample(N, 10 + 2 * r), p.sample(N, 11 + 2 * r), bw) for r in range(8)]
     sigma = float(np.std(noise, ddof=1))
     assert sigma > 0
-    same = mmd(space, p.sample(N, 1), ref, bw)
-    diff = mmd(space, q.sample(N, 2), ref, bw)
+    same = mmd_squared(space, p.sample(N, 1), ref, bw)
+    diff = mmd_squared(space, q.sample(N, 2), ref, bw)
     assert abs(same) < 4 * sigma, (same, sigma)
     assert diff > 10 * sigma, (diff, sigma)
     out = mmd_with_floor(space, q.sample(N, 3), ref, p.sample(N, 4), bandwidth=bw)

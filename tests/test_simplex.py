@@ -16,8 +16,8 @@ import torch
 
 import heatwalk
 from heatwalk import InputError
-from heatwalk.frontend.metrics import median_bandwidth, mmd
-from heatwalk.core.objectives import ScoreField
+from heatwalk.frontend.metrics import median_bandwidth, mmd_squared
+from heatwalk.core.fields import ScoreField
 from heatwalk.samplers import geodesic_random_walk, predictor_corrector
 from heatwalk.core.schedule import TimeSchedule
 from heatwalk.spaces import Simplex, from_config
@@ -320,7 +320,7 @@ def test_from_rows_replacement_errors():
                                          r"smallest non-zero part 0.001"):
         s.from_rows(rows, zero_replacement=0.002)
     for bad in (0.0, -1e-3, float("nan"), "0.01", True):
-        with pytest.raises(InputError, match="zero_replacement must be a positive number"):
+        with pytest.raises(InputError, match="zero_replacement must be a positive finite number"):
             s.from_rows(rows, zero_replacement=bad)
     with pytest.raises(InputError, match=r"too large for K = 4 parts: needs δ < 1/K"):
         s.from_rows(rows, zero_replacement=0.3)
@@ -339,7 +339,7 @@ def test_from_rows_rescale():
         s.from_rows([[1.0, 2.0, 3.0], [0.0, 0.0, 0.0]], rescale=True)
     with pytest.raises(InputError, match=r"row 0: parts sum to 1000"):
         s.from_rows([[200.0, 300.0, 500.0]])
-    with pytest.raises(InputError, match="no writing options"):
+    with pytest.raises(InputError, match="takes no option degrees"):
         s.to_rows(x, degrees=True)
     assert s.column_names() == ["part0", "part1", "part2"]
 
@@ -373,10 +373,10 @@ def test_fit_on_dirichlet_mixture_beats_baselines():
     y = ilr(train)
     chol = torch.linalg.cholesky(torch.cov(y.T))
     lognormal = ilr_inverse(y.mean(0) + torch.randn(1000, 2, dtype=F64, generator=gen(3)) @ chol.T)
-    m_model = mmd(s, samples, held_a, bw)
-    m_floor = mmd(s, held_b, held_a, bw)
-    m_prior = mmd(s, s.prior_sample(1000, gen(2)), held_a, bw)
-    m_lognormal = mmd(s, lognormal, held_a, bw)
+    m_model = mmd_squared(s, samples, held_a, bw)
+    m_floor = mmd_squared(s, held_b, held_a, bw)
+    m_prior = mmd_squared(s, s.prior_sample(1000, gen(2)), held_a, bw)
+    m_lognormal = mmd_squared(s, lognormal, held_a, bw)
     assert m_model < 0.1 * m_prior, (m_model, m_prior)
     assert m_model < m_lognormal - 0.003, (m_model, m_lognormal)
     assert m_model < m_floor + 0.002, (m_model, m_floor)
@@ -386,7 +386,7 @@ def test_probability_flow_log_likelihood_of_logistic_normal():
     # reference: closed form of the time-t_min marginal of a logistic-normal target ilr(x0) ~ N(μ, σ² I):
     # N(ilr x; e^{-t/2} μ, (e^{-t} σ² + 1 - e^{-t}) I) plus log_volume_density (w.r.t. Lebesgue on x_1, x_2);
     # exact divergence, adaptive Dormand–Prince with rtol 1e-5: tolerance 1e-3 nats
-    from heatwalk.samplers.probability_flow import log_likelihood
+    from heatwalk.samplers.flow_ode import log_likelihood
 
     s = Simplex(3)
     mu, s2 = torch.tensor([0.5, -1.0], dtype=F64), 0.2

@@ -324,30 +324,30 @@ def test_conversions_against_scipy():
     q = _random_quat_xyzw(200, 50)
     r = Rotation.from_quat(q)  # scipy: scalar-last
     m = r.as_matrix()
-    np.testing.assert_allclose(space.from_rows(q, format="quaternion", order="xyzw").numpy(), m, atol=1e-12)
-    np.testing.assert_allclose(space.from_rows(q[:, [3, 0, 1, 2]], format="quaternion", order="wxyz").numpy(), m, atol=1e-12)
+    np.testing.assert_allclose(space.from_rows(q, rotation_format="quaternion", quaternion_order="xyzw").numpy(), m, atol=1e-12)
+    np.testing.assert_allclose(space.from_rows(q[:, [3, 0, 1, 2]], rotation_format="quaternion", quaternion_order="wxyz").numpy(), m, atol=1e-12)
     rv = r.as_rotvec()
-    np.testing.assert_allclose(space.from_rows(rv, format="rotvec").numpy(), m, atol=1e-12)
-    np.testing.assert_allclose(space.from_rows(np.rad2deg(rv), format="rotvec", degrees=True).numpy(), m, atol=1e-12)
+    np.testing.assert_allclose(space.from_rows(rv, rotation_format="rotvec").numpy(), m, atol=1e-12)
+    np.testing.assert_allclose(space.from_rows(np.rad2deg(rv), rotation_format="rotvec", degrees=True).numpy(), m, atol=1e-12)
     np.testing.assert_allclose(space.from_rows(m.reshape(-1, 9)).numpy(), m, atol=1e-12)
 
     x = torch.tensor(m)
     qc = r.as_quat(canonical=True)  # w ≥ 0, as heatwalk writes them
-    np.testing.assert_allclose(space.to_rows(x, format="quaternion", order="xyzw").numpy(), qc, atol=1e-12)
-    np.testing.assert_allclose(space.to_rows(x, format="quaternion", order="wxyz").numpy(), qc[:, [3, 0, 1, 2]], atol=1e-12)
-    np.testing.assert_allclose(space.to_rows(x, format="rotvec").numpy(), rv, atol=1e-12)
-    np.testing.assert_allclose(space.to_rows(x, format="rotvec", degrees=True).numpy(), r.as_rotvec(degrees=True), atol=1e-10)
+    np.testing.assert_allclose(space.to_rows(x, rotation_format="quaternion", quaternion_order="xyzw").numpy(), qc, atol=1e-12)
+    np.testing.assert_allclose(space.to_rows(x, rotation_format="quaternion", quaternion_order="wxyz").numpy(), qc[:, [3, 0, 1, 2]], atol=1e-12)
+    np.testing.assert_allclose(space.to_rows(x, rotation_format="rotvec").numpy(), rv, atol=1e-12)
+    np.testing.assert_allclose(space.to_rows(x, rotation_format="rotvec", degrees=True).numpy(), r.as_rotvec(degrees=True), atol=1e-10)
     np.testing.assert_allclose(space.to_rows(x).numpy(), m.reshape(-1, 9), atol=0)
-    assert space.column_names(format="quaternion", order="xyzw") == ["qx", "qy", "qz", "qw"]
-    assert len(space.column_names()) == 9 and len(space.column_names(format="rotvec")) == 3
+    assert space.column_names(rotation_format="quaternion", quaternion_order="xyzw") == ["qx", "qy", "qz", "qw"]
+    assert len(space.column_names()) == 9 and len(space.column_names(rotation_format="rotvec")) == 3
 
     # rotations by nearly π and nearly 0: scipy.Rotation from_rotvec / as_matrix, atol 1e-12
     axis = np.random.default_rng(51).normal(size=(20, 3))
     axis /= np.linalg.norm(axis, axis=1, keepdims=True)
     for ang in [1e-10, PI - 1e-10]:
         mm = Rotation.from_rotvec(ang * axis).as_matrix()
-        np.testing.assert_allclose(space.to_rows(torch.tensor(mm), format="rotvec").numpy(), ang * axis, atol=1e-12)
-        np.testing.assert_allclose(space.from_rows(ang * axis, format="rotvec").numpy(), mm, atol=1e-12)
+        np.testing.assert_allclose(space.to_rows(torch.tensor(mm), rotation_format="rotvec").numpy(), ang * axis, atol=1e-12)
+        np.testing.assert_allclose(space.from_rows(ang * axis, rotation_format="rotvec").numpy(), mm, atol=1e-12)
 
 
 def test_validation_errors():
@@ -370,27 +370,27 @@ def test_validation_errors():
     with pytest.raises(InputError, match=r"takes 9 columns"):
         space.from_rows(np.zeros((2, 8)))
     with pytest.raises(InputError, match=r"takes 4 columns"):
-        space.from_rows(np.zeros((2, 3)), format="quaternion", order="wxyz")
+        space.from_rows(np.zeros((2, 3)), rotation_format="quaternion", quaternion_order="wxyz")
 
     q = _random_quat_xyzw(4, 61)
     with pytest.raises(InputError, match="quaternion component order must be stated: wxyz or xyzw"):
-        space.from_rows(q, format="quaternion")
+        space.from_rows(q, rotation_format="quaternion")
     with pytest.raises(InputError, match="must be wxyz or xyzw"):
-        space.from_rows(q, format="quaternion", order="wzyx")
+        space.from_rows(q, rotation_format="quaternion", quaternion_order="wzyx")
     qz = q.copy()
     qz[2] = 0
     with pytest.raises(InputError, match=r"row 2: zero quaternion"):
-        space.from_rows(qz, format="quaternion", order="xyzw")
+        space.from_rows(qz, rotation_format="quaternion", quaternion_order="xyzw")
     qn = q.copy()
     qn[3] *= 1.01
     with pytest.raises(InputError, match=r"row 3: quaternion is not a unit quaternion.*1e-06"):
-        space.from_rows(qn, format="quaternion", order="xyzw")
+        space.from_rows(qn, rotation_format="quaternion", quaternion_order="xyzw")
     with pytest.raises(InputError, match="unknown rotation format"):
-        space.from_rows(q, format="euler")
+        space.from_rows(q, rotation_format="euler")
     with pytest.raises(InputError, match="degrees applies to format 'rotvec' only"):
         space.from_rows(np.zeros((1, 9)), degrees=True)
     with pytest.raises(InputError, match="order applies to quaternions only"):
-        space.from_rows(np.zeros((1, 3)), format="rotvec", order="wxyz")
+        space.from_rows(np.zeros((1, 3)), rotation_format="rotvec", quaternion_order="wxyz")
 
     # within tolerance: projected onto SO(3) (orthogonal to rounding)
     near = good + 1e-8 * torch.randn(3, 3, 3, dtype=F64, generator=gen(62))
@@ -399,7 +399,7 @@ def test_validation_errors():
     assert (v.transpose(-1, -2) @ v - eye).abs().max() < 1e-14 and (v - good).abs().max() < 1e-7
     qq = q.copy()
     qq[0] *= 1 + 5e-7  # within the unit tolerance: normalised
-    m = space.from_rows(qq, format="quaternion", order="xyzw")
+    m = space.from_rows(qq, rotation_format="quaternion", quaternion_order="xyzw")
     np.testing.assert_allclose(m.numpy(), Rotation.from_quat(q).as_matrix(), atol=1e-12)
 
 

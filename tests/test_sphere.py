@@ -273,12 +273,12 @@ def test_config_volume_and_rows():
     assert abs(s2.log_volume - math.log(4 * math.pi)) < 1e-15  # area of S^2 = 4π
     assert abs(Sphere(3).log_volume - math.log(2 * math.pi ** 2)) < 1e-15
     rows = torch.tensor([[0.0, 0.0], [90.0, 10.0], [-45.0, 270.0], [30.0, -120.0]], dtype=F64)
-    x = s2.from_rows(rows, lonlat_degrees=True)
+    x = s2.from_rows(rows, lonlat=True)
     torch.testing.assert_close(x[1], torch.tensor([0.0, 0.0, 1.0], dtype=F64), atol=1e-15, rtol=0)
-    back = s2.to_rows(x, lonlat_degrees=True)
+    back = s2.to_rows(x, lonlat=True)
     torch.testing.assert_close(back[[0, 3]], rows[[0, 3]], atol=1e-12, rtol=0)
     torch.testing.assert_close(back[2], torch.tensor([-45.0, -90.0], dtype=F64), atol=1e-12, rtol=0)
-    assert s2.column_names(lonlat_degrees=True) == ["latitude_deg", "longitude_deg"]
+    assert s2.column_names(lonlat=True) == ["latitude_deg", "longitude_deg"]
 
 
 def test_validation_errors():
@@ -294,12 +294,12 @@ def test_validation_errors():
     ok = s2.validate([[1.0 + 5e-7, 0, 0]])  # within 1e-6: renormalised
     assert float(ok.norm()) == 1.0
     with pytest.raises(InputError, match="row 1, column 0: latitude 91"):
-        s2.from_rows([[0.0, 0.0], [91.0, 0.0]], lonlat_degrees=True)
+        s2.from_rows([[0.0, 0.0], [91.0, 0.0]], lonlat=True)
     with pytest.raises(InputError, match="row 0, column 1: longitude 400"):
-        s2.from_rows([[0.0, 400.0]], lonlat_degrees=True)
+        s2.from_rows([[0.0, 400.0]], lonlat=True)
     with pytest.raises(InputError, match="only defined for d = 2"):
-        Sphere(3).from_rows([[0.0, 0.0]], lonlat_degrees=True)
-    with pytest.raises(InputError, match="d must be an integer >= 1"):
+        Sphere(3).from_rows([[0.0, 0.0]], lonlat=True)
+    with pytest.raises(InputError, match="d must be a positive integer"):
         Sphere(0)
     with pytest.raises(InputError, match="time must be finite and > 0"):
         s2.log_kernel(s2.random_uniform(2), s2.random_uniform(2), torch.tensor([0.1, -1.0]))

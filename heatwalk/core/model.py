@@ -18,13 +18,14 @@ from pathlib import Path
 import torch
 from torch import nn
 
-from heatwalk.errors import InputError
-from heatwalk.io.atomic import atomic_dir
+from heatwalk.checks import check_positive_int
 from heatwalk.core.networks import build_network, network_name
 from heatwalk.core.objectives import make_objective
+from heatwalk.errors import InputError
+from heatwalk.io.atomic import atomic_dir
 from heatwalk.samplers import SAMPLERS
 from heatwalk.spaces import from_config
-from heatwalk.spaces.base import Space
+from heatwalk.spaces.base import CAPABILITIES, Space
 
 FORMAT_VERSION = 1
 
@@ -37,7 +38,7 @@ class Model:
     space : the state space
     objective : the training objective (holds the time schedule)
     network : the denoiser, with exponential-moving-average weights
-    record : dict of training facts (steps, seed, final loss, timings)
+    record : dict of training facts (steps, seed, loss, timings)
     """
 
     def __init__(self, space: Space, objective, network: nn.Module, record: dict | None = None):
@@ -51,23 +52,31 @@ class Model:
         """What the samplers consume (e.g. the learned score field)."""
         return self.objective.field(self.network)
 
+    def sampler(self, name: str | None = None):
+        """The registered sampler ``name`` (default: the objective's), checked against this model."""
+        name = name or self.objective.default_sampler
+        if name not in SAMPLERS:
+            raise InputError(f"unknown sampler {name!r}; known: {sorted(SAMPLERS)}", field="sampler")
+        entry = SAMPLERS[name]
+        kind, caps = self.objective.field_kind, self.space.capabilities
+        if kind not in entry.field_kinds:
+            ok = sorted(k for k, s in SAMPLERS.items() if s.applies_to(kind, caps))
+            raise InputError(f"sampler {name!r} does not apply to this model; use one of {ok}", field="sampler")
+        missing = sorted(entry.requires - caps)
+        if missing:
+            needs = "; ".join(CAPABILITIES.get(c, c) for c in missing)
+            raise InputError(f"sampler {name!r} needs {needs}; this model's space is {self.space!r}", field="sampler")
+        return entry
+
     def sample(self, n: int, steps: int = 500, sampler: str | None = None, seed: int | None = 0,
                generator: torch.Generator | None = None, progress: bool = True, **options) -> torch.Tensor:
         """Draw ``n`` points with ``steps`` reverse steps of ``sampler`` (default: the objective's)."""
-        if not isinstance(n, int) or n < 1:
-            raise InputError(f"n must be a positive integer, got {n!r}", field="n")
-        name = sampler or self.objective.default_sampler
-        if name not in SAMPLERS:
-            raise InputError(f"unknown sampler {name!r}; known: {sorted(SAMPLERS)}", field="sampler")
-        fn, kinds = SAMPLERS[name]
-        field = self.field
-        if field.kind not in kinds:
-            ok = sorted(k for k, (_, ks) in SAMPLERS.items() if field.kind in ks)
-            raise InputError(f"sampler {name!r} does not apply to this model; use one of {ok}", field="sampler")
+        check_positive_int("n", n)
+        entry = self.sampler(sampler)
         if generator is None:
             generator = torch.Generator().manual_seed(0 if seed is None else seed)
         with torch.no_grad():
-            return fn(field, n, steps=steps, generator=generator, progress=progress, **options)
+            return entry.function(self.field, n, steps=steps, generator=generator, progress=progress, **options)
 
     def elbo(self, x, n_time_samples: int = 32, seed: int | None = 0,
              generator: torch.Generator | None = None, **options):
@@ -75,25 +84,19 @@ class Model:
 
         Objectives without a likelihood bound raise :class:`InputError`.
         """
-        fn = getattr(self.objective, "elbo", None)
-        if fn is None:
-            raise InputError(f"the {type(self.objective).__name__} objective has no ELBO", field="objective")
         if generator is None:
             generator = torch.Generator().manual_seed(0 if seed is None else seed)
         with torch.no_grad():
-            return fn(self.network, self.space.validate(x), generator, n_time_samples, **options)
+            return self.objective.elbo(self.network, self.space.validate(x), generator, n_time_samples, **options)
 
     def log_prob(self, x, **options) -> dict:
         """Log-likelihood of points ``x`` in nats, w.r.t. the space's reference measure.
 
         For score models: the probability-flow ODE (exact up to solver tolerance); for discrete
-        models: the negative ELBO, an upper bound on -log p, flagged by ``bound = True``.
+        models: the negative ELBO, a lower bound on log p, flagged by ``bound = True``.
         ``options`` go to the objective (e.g. ``method``, ``rtol``, ``divergence``, ``n_probes``).
         """
-        fn = getattr(self.objective, "log_prob", None)
-        if fn is None:
-            raise InputError(f"objective {type(self.objective).__name__} offers no log-likelihood")
-        return fn(self.network, x, **options)
+        return self.objective.log_prob(self.network, x, **options)
 
     # ----- persistence ---------------------------------------------------------------------
     def config(self) -> dict:

@@ -14,7 +14,10 @@ import math
 
 import torch
 
+from heatwalk.checks import check_choice, check_positive_int
 from heatwalk.errors import InputError
+
+GRID_SPACINGS = ("geometric", "linear")
 
 
 class TimeSchedule:
@@ -38,10 +41,11 @@ class TimeSchedule:
         u = torch.rand(n, dtype=torch.float64, generator=generator)
         return torch.exp(self._log_min + self._log_span * u)
 
-    def grid(self, steps: int) -> torch.Tensor:
-        """steps+1 times from t_max down to t_min, geometric (float64)."""
-        if steps < 1:
-            raise InputError(f"steps must be >= 1, got {steps}", field="steps")
+    def grid(self, steps: int, spacing: str = "geometric") -> torch.Tensor:
+        """steps+1 times from t_max down to t_min (float64), geometric or linear in t."""
+        check_positive_int("steps", steps)
+        if check_choice("spacing", spacing, GRID_SPACINGS) == "linear":
+            return torch.linspace(self.t_max, self.t_min, steps + 1, dtype=torch.float64)
         return torch.logspace(math.log10(self.t_max), math.log10(self.t_min), steps + 1, dtype=torch.float64)
 
     @property

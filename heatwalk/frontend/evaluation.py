@@ -1,78 +1,112 @@
-"""Evaluation of a fitted model against data: the report behind ``heatwalk evaluate``.
+"""Evaluation of a fitted model against data: the report behind ``heatwalk evaluate`` and the demo.
 
 The data are shuffled with the seed and split into two halves A and B. The
 model draws |B| samples. Reported:
 
 - held-out mean log-likelihood (nats per point, w.r.t. the space's reference
   measure) on up to ``likelihood_points`` points of the data, with its standard
-  error; for discrete models this is the negative ELBO, a bound, and is labelled so;
-- MMD² (Gaussian kernel in geodesic distance, median-heuristic bandwidth on A)
-  of samples vs A, and its noise floor: MMD² of B vs A (same sizes);
-- on a torus, the circular Wasserstein-1 distance per angle (samples vs A, and B vs A as floor);
-- for sequences, the total-variation distance of k-mer spectra (k = 1, 2, 3; B vs A as floor);
+  error; for discrete models this is the negative ELBO, a lower bound, and is labelled so;
+- sample metrics (:data:`SAMPLE_METRICS`), each applied where the space declares
+  what it needs: MMD² (Gaussian kernel in the space's distance, median-heuristic
+  bandwidth on A) on every space; the circular Wasserstein-1 distance per angle
+  on spaces of angles; k-mer spectrum total-variation distances on sequences.
+  Each comes with its noise floor: the same statistic for B against A;
 - counts, seeds and timings.
 """
 
 from __future__ import annotations
 
-import json
-import math
 import time
+from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.io.atomic import atomic_path
 from heatwalk.frontend.metrics import circular_wasserstein, kmer_spectrum_distance, mean_log_likelihood, mmd_with_floor
+from heatwalk.io.atomic import atomic_path, write_json
 
 
-def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 300, sampler: str | None = None,
-             likelihood_points: int = 500, progress: bool = False) -> dict:
-    """Evaluate ``model`` on validated points ``data``; returns the report as a dict."""
-    space = model.space
+def _mmd(space, samples, half_a, half_b, bandwidth=None) -> dict:
+    m = mmd_with_floor(space, samples, half_a, half_b, bandwidth=bandwidth)
+    return {"model_vs_a": m["mmd2"], "noise_floor_b_vs_a": m["floor"], "bandwidth": m["bandwidth"], "n": m["n"],
+            "kernel": "exp(-d^2 / (2 h^2)), d the space's distance, h median of A"}
+
+
+def _circular_w1(space, samples, half_a, half_b, bandwidth=None) -> dict:
+    return {"model_vs_a": circular_wasserstein(samples, half_a),
+            "noise_floor_b_vs_a": circular_wasserstein(half_b, half_a)}
+
+
+def _kmers(space, samples, half_a, half_b, bandwidth=None) -> dict:
+    ks = [k for k in (1, 2, 3) if k <= space.L]
+    return {str(k): {"model_vs_a": kmer_spectrum_distance(samples, half_a, space.K, k),
+                     "noise_floor_b_vs_a": kmer_spectrum_distance(half_b, half_a, space.K, k)} for k in ks}
+
+
+@dataclass(frozen=True)
+class SampleMetric:
+    """A two-sample metric: its report key, the space capabilities it needs, and how to compute it."""
+
+    key: str
+    requires: frozenset
+    compute: Callable
+
+
+SAMPLE_METRICS = (
+    SampleMetric("mmd2", frozenset(), _mmd),
+    SampleMetric("wasserstein1_per_angle_rad", frozenset({"angles"}), _circular_w1),
+    SampleMetric("kmer_tv_distance", frozenset({"sequences"}), _kmers),
+)
+
+
+def sample_metrics(space, samples, half_a, half_b, bandwidth: float | None = None) -> dict:
+    """Every metric of :data:`SAMPLE_METRICS` that applies to ``space``, samples against A with B as floor."""
+    return {m.key: m.compute(space, samples, half_a, half_b, bandwidth)
+            for m in SAMPLE_METRICS if m.requires <= space.capabilities}
+
+
+def split_halves(data: torch.Tensor, seed: int) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
+    """(permutation, half A, half B) of the data shuffled with ``seed``."""
     n = data.shape[0]
     if n < 4:
         raise InputError(f"need at least 4 data points to evaluate, got {n}", field="data")
-    g = torch.Generator().manual_seed(seed)
-    perm = torch.randperm(n, generator=g)
-    half_a, half_b = data[perm[: n // 2]], data[perm[n // 2: 2 * (n // 2)]]
-    report: dict = {"space": space.config(), "n_data": int(n), "n_half_a": int(half_a.shape[0]),
-                    "n_half_b": int(half_b.shape[0]), "seed": seed, "timings_s": {}}
+    perm = torch.randperm(n, generator=torch.Generator().manual_seed(seed))
+    return perm, data[perm[: n // 2]], data[perm[n // 2: 2 * (n // 2)]]
 
+
+def likelihood_section(model, points: torch.Tensor) -> dict:
+    """Mean held-out log-likelihood of ``points`` with its standard error and what kind it is."""
+    out = model.log_prob(points)
+    ll = mean_log_likelihood(out["log_prob"])
+    bound = bool(out.get("bound", False))
+    section = {"mean_nats": ll["mean"], "stderr_nats": ll["stderr"], "n": ll["n"], "is_bound": bound,
+               "what": "lower bound (negative ELBO)" if bound else "probability-flow ODE"}
+    if "bits_per_token" in out:
+        section["bits_per_token"] = out["bits_per_token"]
+    return section
+
+
+def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 300, sampler: str | None = None,
+             likelihood_points: int = 500, progress: bool = False) -> tuple[dict, torch.Tensor]:
+    """Evaluate ``model`` on validated points ``data``; returns (report dict, the samples drawn)."""
+    space = model.space
+    perm, half_a, half_b = split_halves(data, seed)
+    report: dict = {"space": space.config(), "n_data": int(data.shape[0]), "n_half_a": int(half_a.shape[0]),
+                    "n_half_b": int(half_b.shape[0]), "seed": seed, "timings_s": {}}
     t0 = time.perf_counter()
     samples = model.sample(int(half_b.shape[0]), steps=sample_steps, sampler=sampler, seed=seed + 1,
                            progress=progress)
     report["timings_s"]["sampling"] = time.perf_counter() - t0
     report["sampler"] = sampler or model.objective.default_sampler
     report["sample_steps"] = sample_steps
-
     t0 = time.perf_counter()
-    m = mmd_with_floor(space, samples, half_a, half_b)
-    report["mmd2"] = {"model_vs_a": m["mmd2"], "noise_floor_b_vs_a": m["floor"], "bandwidth": m["bandwidth"],
-                      "n": m["n"], "kernel": "exp(-d^2 / (2 h^2)), d geodesic distance, h median of A"}
-    if space.config()["kind"] == "torus":
-        report["wasserstein1_per_angle_rad"] = {"model_vs_a": circular_wasserstein(samples, half_a),
-                                                "noise_floor_b_vs_a": circular_wasserstein(half_b, half_a)}
-    if space.config()["kind"] == "categories":
-        ks = [k for k in (1, 2, 3) if k <= space.L]
-        report["kmer_tv_distance"] = {
-            str(k): {"model_vs_a": kmer_spectrum_distance(samples, half_a, space.K, k),
-                     "noise_floor_b_vs_a": kmer_spectrum_distance(half_b, half_a, space.K, k)} for k in ks}
+    report.update(sample_metrics(space, samples, half_a, half_b))
     report["timings_s"]["metrics"] = time.perf_counter() - t0
-
     if likelihood_points > 0:
         t0 = time.perf_counter()
-        pts = data[perm[:likelihood_points]]
-        out = model.log_prob(pts)
-        ll = mean_log_likelihood(out["log_prob"])
-        report["log_likelihood"] = {
-            "mean_nats": ll["mean"], "stderr_nats": ll["stderr"], "n": ll["n"],
-            "is_bound": bool(out.get("bound", False)),
-            "what": "lower bound (negative ELBO)" if out.get("bound") else "probability-flow ODE",
-        }
-        if "bits_per_token" in out:
-            report["log_likelihood"]["bits_per_token"] = out["bits_per_token"]
+        report["log_likelihood"] = likelihood_section(model, data[perm[:likelihood_points]])
         report["timings_s"]["log_likelihood"] = time.perf_counter() - t0
     return report, samples
 
@@ -96,17 +130,18 @@ def format_table(report: dict) -> str:
         lines.append("  W1 per angle (rad): samples vs A " + ", ".join(f"{v:.4f}" for v in w["model_vs_a"])
                      + "   floor " + ", ".join(f"{v:.4f}" for v in w["noise_floor_b_vs_a"]))
     for k, v in report.get("kmer_tv_distance", {}).items():
-        lines.append(f"  {k}-mer spectrum TV distance: samples vs A {v['model_vs_a']:.4f}   floor {v['noise_floor_b_vs_a']:.4f}")
+        lines.append(f"  {k}-mer spectrum TV distance: samples vs A {v['model_vs_a']:.4f}   "
+                     f"floor {v['noise_floor_b_vs_a']:.4f}")
     lines.append("  timings (s): " + ", ".join(f"{k} {v:.1f}" for k, v in report["timings_s"].items()))
     return "\n".join(lines)
 
 
 def write_report(out_dir, report: dict) -> tuple[Path, Path]:
+    """evaluation.json and evaluation.txt in ``out_dir`` (each written atomically)."""
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     j, t = out_dir / "evaluation.json", out_dir / "evaluation.txt"
-    with atomic_path(j) as tmp:
-        tmp.write_text(json.dumps(report, indent=2) + "\n")
+    write_json(j, report)
     with atomic_path(t) as tmp:
         tmp.write_text(format_table(report) + "\n")
     return j, t

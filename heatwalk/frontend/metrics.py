@@ -1,6 +1,6 @@
 """Sample-quality metrics on a space.
 
-- :func:`mmd` — maximum mean discrepancy with a Gaussian kernel in the
+- :func:`mmd_squared` — the squared maximum mean discrepancy with a Gaussian kernel in the
   geodesic distance, k(x, y) = exp(-d(x, y)² / (2 h²)), unbiased U-statistic
   estimate of MMD² (Gretton et al. 2012, JMLR 13, eq. 3). Note that a Gaussian
   kernel in geodesic distance need not be positive definite on every manifold;
@@ -29,7 +29,6 @@ from heatwalk.spaces.base import Space
 
 def pairwise_dist(space: Space, x: torch.Tensor, y: torch.Tensor, chunk: int = 2048) -> torch.Tensor:
     """Geodesic distances d(x_i, y_j), shape (n, m), computed in chunks of rows."""
-    ev = len(space.ambient_shape)
     out = []
     for i in range(0, x.shape[0], chunk):
         xi = x[i:i + chunk]
@@ -37,7 +36,6 @@ def pairwise_dist(space: Space, x: torch.Tensor, y: torch.Tensor, chunk: int = 2
         b = y.reshape(1, y.shape[0], *space.ambient_shape).expand_as(a)
         out.append(space.dist(a.reshape(-1, *space.ambient_shape), b.reshape(-1, *space.ambient_shape))
                    .reshape(xi.shape[0], y.shape[0]))
-    del ev
     return torch.cat(out, dim=0)
 
 
@@ -49,10 +47,10 @@ def median_bandwidth(space: Space, x: torch.Tensor, n: int = 1000) -> float:
     return float(d[iu[0], iu[1]].median())
 
 
-def mmd(space: Space, x: torch.Tensor, y: torch.Tensor, bandwidth: float) -> float:
+def mmd_squared(space: Space, x: torch.Tensor, y: torch.Tensor, bandwidth: float) -> float:
     """Unbiased estimate of MMD² (may be slightly negative when the laws agree)."""
     if x.shape[0] < 2 or y.shape[0] < 2:
-        raise InputError("mmd needs at least 2 points in each sample")
+        raise InputError("MMD² needs at least 2 points in each sample")
     if not bandwidth > 0:
         raise InputError(f"bandwidth must be positive, got {bandwidth}", field="bandwidth")
     g = -0.5 / bandwidth**2
@@ -76,8 +74,8 @@ def mmd_with_floor(space: Space, samples: torch.Tensor, heldout_a: torch.Tensor,
     if bandwidth is None:
         bandwidth = median_bandwidth(space, heldout_a)
     return {
-        "mmd2": mmd(space, samples[:n], heldout_a, bandwidth),
-        "floor": mmd(space, heldout_b[:n], heldout_a, bandwidth),
+        "mmd2": mmd_squared(space, samples[:n], heldout_a, bandwidth),
+        "floor": mmd_squared(space, heldout_b[:n], heldout_a, bandwidth),
         "bandwidth": bandwidth,
         "n": int(n),
     }

@@ -1,41 +1,17 @@
 """Pictures of data against samples.
 
-A space can offer ``plot_coordinates(x) -> (coords (n, 2) numpy, (xlabel, ylabel), (xlim, ylim))``;
-:func:`plot_data_and_samples` draws a side-by-side scatter of the two sets in
-those coordinates (angles for a torus, longitude/latitude for S², …). Spaces
-without it get no picture, and the caller is told so (``None`` is returned).
+Every space offers ``plot_coordinates(x) -> (coords (n, 2) numpy, (xlabel,
+ylabel), (xlim, ylim))`` or None (no 2-D picture): angles for a torus,
+longitude/latitude for S², rotation axes for SO(3), the ternary diagram for a
+3-part simplex. :func:`plot_data_and_samples` draws a side-by-side scatter of
+the two sets in those coordinates.
 """
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
-import numpy as np
-
 from heatwalk.io.atomic import atomic_path
-
-
-def default_plot_coordinates(space, x):
-    cfg = space.config()
-    if cfg["kind"] == "torus":
-        a = x[:, :2].numpy() if space.n >= 2 else np.stack([x[:, 0].numpy(), np.zeros(x.shape[0])], 1)
-        lim = (-math.pi, math.pi)
-        return a, ("angle 0 (rad)", "angle 1 (rad)" if space.n >= 2 else ""), (lim, lim)
-    if cfg["kind"] == "sphere" and cfg["d"] == 2:
-        v = x.numpy()
-        lat = np.degrees(np.arcsin(np.clip(v[:, 2], -1, 1)))
-        lon = np.degrees(np.arctan2(v[:, 1], v[:, 0]))
-        return np.stack([lon, lat], 1), ("longitude (deg)", "latitude (deg)"), ((-180, 180), (-90, 90))
-    if cfg["kind"] == "so3":
-        # rotation axis direction as longitude/latitude (the angle is not shown)
-        r = x.numpy()
-        axis = np.stack([r[:, 2, 1] - r[:, 1, 2], r[:, 0, 2] - r[:, 2, 0], r[:, 1, 0] - r[:, 0, 1]], 1)
-        axis /= np.maximum(np.linalg.norm(axis, axis=1, keepdims=True), 1e-12)
-        lat = np.degrees(np.arcsin(np.clip(axis[:, 2], -1, 1)))
-        lon = np.degrees(np.arctan2(axis[:, 1], axis[:, 0]))
-        return np.stack([lon, lat], 1), ("axis longitude (deg)", "axis latitude (deg)"), ((-180, 180), (-90, 90))
-    return None
 
 
 def plot_data_and_samples(space, data, samples, path, title: str = "", max_points: int = 5000):
@@ -45,10 +21,8 @@ def plot_data_and_samples(space, data, samples, path, title: str = "", max_point
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    coords = getattr(space, "plot_coordinates", None)
-    get = coords if coords is not None else (lambda x: default_plot_coordinates(space, x))
-    a = get(data[:max_points])
-    b = get(samples[:max_points])
+    a = space.plot_coordinates(data[:max_points])
+    b = space.plot_coordinates(samples[:max_points])
     if a is None or b is None:
         return None
     (pa, labels, lims), (pb, _, _) = a, b

@@ -29,6 +29,7 @@ from pathlib import Path
 
 import torch
 
+from heatwalk.checks import check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.io.atomic import atomic_path
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
@@ -132,8 +133,8 @@ def read_sequences(path, *, format: str = "auto", alphabet=None, length: int | N
         raise InputError(f"{path}: the alphabet has {len(symbols)} symbol(s) {''.join(map(str, symbols))!r}; "
                          "a categorical model needs at least 2", field="alphabet")
     symbols = check_alphabet(symbols, len(symbols))
-    if length is not None and (not isinstance(length, int) or length < 1):
-        raise InputError(f"length must be a positive integer, got {length!r}", field="length")
+    if length is not None:
+        check_positive_int("length", length)
     codes = encode_strings(seqs, symbols, length=length, where=str(path))
     return SequenceSet(codes=codes, alphabet=list(symbols), names=names)
 

@@ -86,7 +86,13 @@ def read_points(path, space: Space, **options) -> torch.Tensor:
 
     Errors name the file, the line and the problem.
     """
-    rows, _, lines = read_table(path)
+    return points_from_table(path, space, read_table(path), **options)
+
+
+def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
+    """Points on ``space`` from a table returned by :func:`read_table` (errors located in ``path``)."""
+    rows, _, lines = table
+    space.check_file_options(options)
     expected = space.n_columns_for(**options)
     if rows.shape[1] != expected:
         raise InputError(f"{path}: {rows.shape[1]} columns per row, but {space!r} with options {options or '{}'} "
@@ -99,7 +105,7 @@ def read_points(path, space: Space, **options) -> torch.Tensor:
         raise e.located(str(path)) from None
 
 
-def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = True, **options) -> Path:
+def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, **options) -> Path:
     """Write points as CSV with a header, atomically (temporary file, then rename)."""
     rows = space.to_rows(x, **options)
     header = space.column_names(**options)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import torch
 from torch import nn
 
-from heatwalk.errors import InputError
+from heatwalk.checks import check_positive_int
 
 
 class MLPDenoiser(nn.Module):
@@ -21,8 +21,9 @@ class MLPDenoiser(nn.Module):
 
     def __init__(self, in_dim: int, time_dim: int, out_dim: int, hidden: int = 256, depth: int = 3):
         super().__init__()
-        if depth < 1 or hidden < 1:
-            raise InputError(f"network depth and hidden must be >= 1, got depth={depth}, hidden={hidden}")
+        for name, value in (("in_dim", in_dim), ("time_dim", time_dim), ("out_dim", out_dim), ("hidden", hidden),
+                            ("depth", depth)):
+            check_positive_int(f"MLP network: {name}", value)
         self._config = dict(in_dim=in_dim, time_dim=time_dim, out_dim=out_dim, hidden=hidden, depth=depth)
         layers: list[nn.Module] = [nn.Linear(in_dim + time_dim, hidden), nn.SiLU()]
         for _ in range(depth - 1):

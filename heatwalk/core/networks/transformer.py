@@ -11,6 +11,7 @@ from __future__ import annotations
 import torch
 from torch import nn
 
+from heatwalk.checks import check_positive_int
 from heatwalk.errors import InputError
 
 
@@ -32,8 +33,7 @@ class TransformerDenoiser(nn.Module):
         super().__init__()
         for name, v in (("length", length), ("n_inputs", n_inputs), ("n_outputs", n_outputs),
                         ("time_dim", time_dim), ("d_model", d_model), ("n_layers", n_layers), ("n_heads", n_heads)):
-            if not isinstance(v, int) or isinstance(v, bool) or v < 1:
-                raise InputError(f"transformer: {name} must be a positive integer, got {v!r}", field=name)
+            check_positive_int(f"transformer: {name}", v)
         if d_model % n_heads:
             raise InputError(f"transformer: d_model ({d_model}) must be divisible by n_heads ({n_heads})",
                              field="n_heads")

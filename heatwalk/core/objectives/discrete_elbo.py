@@ -34,10 +34,14 @@ from dataclasses import dataclass
 import torch
 from torch import nn
 
-from heatwalk.errors import InputError
-from heatwalk.core.networks import MLPDenoiser
-from heatwalk.core.schedule import TimeSchedule
+from heatwalk.checks import check_int, check_number
+from heatwalk.core.fields import X0ProbabilityField
+from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.networks.transformer import TransformerDenoiser
+from heatwalk.core.objectives.base import Objective
+from heatwalk.core.schedule import TimeSchedule
+from heatwalk.errors import InputError
+from heatwalk.spaces.finite import FiniteStateSpace
 
 LN2 = math.log(2.0)
 
@@ -64,41 +68,7 @@ class ELBOEstimate:
         return self.bits_per_token * LN2
 
 
-class X0LogitsField:
-    """What discrete samplers consume: x_0 probabilities and reverse rates of a trained network."""
-
-    kind = "x0_logits"
-
-    def __init__(self, objective: "DiscreteELBO", net: nn.Module):
-        self.space = objective.space
-        self.schedule = objective.schedule
-        self._objective = objective
-        self._net = net
-
-    def _t(self, t, n):
-        t = torch.as_tensor(t, dtype=torch.float64)
-        return t.expand(n) if t.dim() == 0 else t
-
-    def log_x0_probs(self, xt: torch.Tensor, t) -> torch.Tensor:
-        """(n, L, K) log p_θ(x_0,l = a | x_t), -inf on states that cannot have produced x_t."""
-        return self._objective.log_x0_probs(self._net, xt, self._t(t, xt.shape[0]))
-
-    def x0_probs(self, xt: torch.Tensor, t) -> torch.Tensor:
-        return self.log_x0_probs(xt, t).exp()
-
-    def log_reverse_rates(self, xt: torch.Tensor, t) -> torch.Tensor:
-        """(n, L, n_states) log r_θ of jumping at position l to state v at time t."""
-        t = self._t(t, xt.shape[0])
-        return self.space.log_reverse_rates(xt, self.log_x0_probs(xt, t), t)
-
-    def grid(self, steps: int) -> torch.Tensor:
-        """steps + 1 times, uniform from t_max down to t_min (the schedule is linear in t)."""
-        if not isinstance(steps, int) or steps < 1:
-            raise InputError(f"steps must be a positive integer, got {steps!r}", field="steps")
-        return torch.linspace(self.schedule.t_max, self.schedule.t_min, steps + 1, dtype=torch.float64)
-
-
-class DiscreteELBO:
+class DiscreteELBO(Objective):
     """Training by the continuous-time ELBO (see module docstring), optionally plus a cross-entropy term.
 
     Parameters
@@ -109,24 +79,21 @@ class DiscreteELBO:
     recon_fraction : fraction of each training batch on which the reconstruction term is estimated
     """
 
-    field_kind = "x0_logits"
+    name = "discrete_elbo"
+    field_kind = "x0_probabilities"
     default_sampler = "ancestral"
+    likelihood_is_bound = True
 
     def __init__(self, space, schedule: TimeSchedule, ce_weight: float = 0.0, recon_fraction: float = 0.25):
-        if not hasattr(space, "log_reverse_rates"):
+        if not isinstance(space, FiniteStateSpace):
             raise InputError(f"the discrete ELBO needs a finite state space, got {type(space).__name__}",
                              field="space")
         if schedule.t_max > 1.0:
             raise InputError(f"time range: t_max must be <= 1 on a finite space (t = 1 is the prior), "
                              f"got {schedule.t_max}", field="time_range")
-        if not (ce_weight >= 0 and math.isfinite(ce_weight)):
-            raise InputError(f"ce_weight must be >= 0, got {ce_weight}", field="ce_weight")
-        if not (0 < recon_fraction <= 1):
-            raise InputError(f"recon_fraction must be in (0, 1], got {recon_fraction}", field="recon_fraction")
-        self.space = space
-        self.schedule = schedule
-        self.ce_weight = float(ce_weight)
-        self.recon_fraction = float(recon_fraction)
+        super().__init__(space, schedule)
+        self.ce_weight = check_number("ce_weight", ce_weight, minimum=0)
+        self.recon_fraction = check_number("recon_fraction", recon_fraction, minimum=0, open_minimum=True, maximum=1)
         states = torch.arange(space.K).reshape(-1, 1).expand(-1, space.L)
         if not bool(torch.isfinite(space.prior_kl(states, schedule.t_max)).all()):
             raise InputError(f"time range: at t_max = {schedule.t_max} the law of x_t is not absolutely continuous "
@@ -138,8 +105,7 @@ class DiscreteELBO:
         return cls(space, TimeSchedule(**config["schedule"]), **extra)
 
     def config(self) -> dict:
-        return {"name": "discrete_elbo", "schedule": self.schedule.config(), "ce_weight": self.ce_weight,
-                "recon_fraction": self.recon_fraction}
+        return {**super().config(), "ce_weight": self.ce_weight, "recon_fraction": self.recon_fraction}
 
     # ----- network ------------------------------------------------------------------------------
     def default_network(self, architecture: str | None = None, **options) -> nn.Module:
@@ -181,8 +147,8 @@ class DiscreteELBO:
         support = sp.x0_support(xt, t)
         return torch.log_softmax(logits.masked_fill(~support, -math.inf), dim=-1)
 
-    def field(self, net: nn.Module) -> X0LogitsField:
-        return X0LogitsField(self, net)
+    def field(self, net: nn.Module) -> X0ProbabilityField:
+        return X0ProbabilityField(self.space, self.schedule, lambda xt, t: self.log_x0_probs(net, xt, t))
 
     # ----- the bound ---------------------------------------------------------------------------
     def _integrand(self, xt, x0, t, log_p):
@@ -190,13 +156,13 @@ class DiscreteELBO:
         sp = self.space
         onehot = torch.nn.functional.one_hot(x0, sp.K).bool()
         log_true = torch.where(onehot, 0.0, -math.inf).to(torch.float64)
-        lr = sp.log_reverse_rates(xt, log_true, t)      # exact reverse rates given x_0
-        lq = sp.log_reverse_rates(xt, log_p, t)         # model's
-        has_r, has_q = torch.isfinite(lr), torch.isfinite(lq)
+        log_rate_true = sp.log_reverse_rates(xt, log_true, t)     # exact reverse rates given x_0
+        log_rate_model = sp.log_reverse_rates(xt, log_p, t)       # the model's
+        has_r, has_q = torch.isfinite(log_rate_true), torch.isfinite(log_rate_model)
         if bool((has_r & ~has_q).any()):
             raise FloatingPointError("model reverse rate is zero where the exact one is not")
-        d = torch.where(has_r, lr, 0.0) - torch.where(has_r, lq, 0.0)
-        q = torch.where(has_q, lq, -math.inf).exp()
+        d = torch.where(has_r, log_rate_true, 0.0) - torch.where(has_r, log_rate_model, 0.0)
+        q = torch.where(has_q, log_rate_model, -math.inf).exp()
         # r_θ (e^d d − e^d + 1) = r log(r/r_θ) − r + r_θ, written so small d keeps full precision
         em1 = torch.expm1(d)
         phi = torch.where(has_r, d * em1 + (d - em1), 1.0)
@@ -244,9 +210,7 @@ class DiscreteELBO:
         of x_{t_min}; the prior term is exact. The returned standard errors are those of the
         unstratified estimator (an upper bound on the stratified one).
         """
-        if not isinstance(n_time_samples, int) or n_time_samples < 2:
-            raise InputError(f"n_time_samples must be an integer >= 2, got {n_time_samples!r}",
-                             field="n_time_samples")
+        check_int("n_time_samples", n_time_samples, minimum=2)
         sp, sch, M = self.space, self.schedule, n_time_samples
         x = sp.validate(x)
         n, L = x.shape

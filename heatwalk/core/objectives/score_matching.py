@@ -7,34 +7,14 @@ import math
 import torch
 from torch import nn
 
-from heatwalk.errors import InputError
+from heatwalk.core.fields import ScoreField
 from heatwalk.core.networks.mlp import MLPDenoiser
-from heatwalk.core.schedule import TimeSchedule
-from heatwalk.spaces.base import Space
+from heatwalk.core.objectives.base import Objective
+from heatwalk.errors import InputError
+from heatwalk.samplers.flow_ode import log_likelihood
 
 
-class ScoreField:
-    """A (learned or exact) score field s(x, t) on a space, with its time schedule.
-
-    ``score(x, t)`` returns a float64 tangent vector at each x. Samplers and the
-    probability-flow ODE consume this object.
-    """
-
-    kind = "score"
-
-    def __init__(self, space: Space, schedule: TimeSchedule, score_fn):
-        self.space = space
-        self.schedule = schedule
-        self._score_fn = score_fn
-
-    def score(self, x: torch.Tensor, t) -> torch.Tensor:
-        t = torch.as_tensor(t, dtype=torch.float64)
-        if t.dim() == 0:
-            t = t.expand(x.shape[0])
-        return self._score_fn(x, t)
-
-
-class ScoreMatching:
+class ScoreMatching(Objective):
     """Denoising score matching on the exact conditional score of the space's heat kernel.
 
     For a data batch x_0: draw t ~ log-uniform[t_min, t_max], x_t ~ p_t(· | x_0)
@@ -47,20 +27,18 @@ class ScoreMatching:
     projection. The minimiser is the score of the time-t marginal.
     """
 
+    name = "score_matching"
     field_kind = "score"
     default_sampler = "geodesic_random_walk"
 
-    def __init__(self, space: Space, schedule: TimeSchedule):
-        self.space = space
-        self.schedule = schedule
+    def __init__(self, space, schedule):
+        super().__init__(space, schedule)
         self._out_dim = math.prod(space.ambient_shape)
-
-    def config(self) -> dict:
-        return {"name": "score_matching", "schedule": self.schedule.config()}
 
     def default_network(self, hidden: int = 256, depth: int = 3, **extra) -> nn.Module:
         if extra:
-            raise InputError(f"unknown network options for score matching: {sorted(extra)}")
+            raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, hidden",
+                             field="network")
         return MLPDenoiser(self.space.embed_dim, self.schedule.n_features, self._out_dim, hidden, depth)
 
     def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
@@ -70,22 +48,22 @@ class ScoreMatching:
         raw = net(feats, tf).double().reshape(x.shape)
         return self.space.to_tangent(x, raw)
 
+    def _time_column(self, t: torch.Tensor) -> torch.Tensor:
+        return t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))
+
     def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
         t = self.schedule.sample(x0.shape[0], generator)
         xt = self.space.sample_forward(x0, t, generator)
-        sqrt_t = t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))
-        target = sqrt_t * self.space.score(xt, x0, t)
+        target = self._time_column(t) * self.space.score(xt, x0, t)
         diff = self.scaled_score(net, xt, t) - target
         return self.space.inner(xt, diff, diff).mean() / self.space.dim
 
     def log_prob(self, net: nn.Module, x, **options) -> dict:
         """Exact log-likelihood (nats, reference measure of the space) by the probability-flow ODE.
 
-        Returns the dict of :func:`heatwalk.samplers.probability_flow.log_likelihood`, with
+        Returns the dict of :func:`heatwalk.samplers.flow_ode.log_likelihood`, with
         ``bound = False`` (an ODE log-likelihood, not a bound).
         """
-        from heatwalk.samplers.probability_flow import log_likelihood
-
         with torch.no_grad():
             out = log_likelihood(self.field(net), x, **options)
         out["bound"] = False
@@ -93,7 +71,6 @@ class ScoreMatching:
 
     def field(self, net: nn.Module) -> ScoreField:
         def score_fn(x, t):
-            sqrt_t = t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))
-            return self.scaled_score(net, x, t) / sqrt_t
+            return self.scaled_score(net, x, t) / self._time_column(t)
 
         return ScoreField(self.space, self.schedule, score_fn)

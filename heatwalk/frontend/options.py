@@ -1,0 +1,57 @@
+"""Command-line flags built from what the spaces declare.
+
+Every registered space lists its reading/writing options (``file_options``)
+and space-building options (``build_options``) as
+:class:`heatwalk.spaces.Option` objects. :func:`add_space_option_flags` adds
+one flag per option name (``--`` + name with ``-`` for ``_``), with the help
+text of every space that declares it; :func:`chosen_options` collects the
+flags a user set and refuses those the chosen space does not declare. Adding a
+space therefore never touches the command line.
+"""
+
+from __future__ import annotations
+
+from heatwalk.errors import InputError
+
+
+def _declared_options():
+    """{option name: [(space kind, Option), ...]} over every registered space, in registration order."""
+    from heatwalk.spaces import SPACE_KINDS
+
+    out: dict[str, list] = {}
+    for kind, cls in SPACE_KINDS.items():
+        for opt in (*cls.file_options, *cls.build_options):
+            out.setdefault(opt.name, []).append((kind, opt))
+    return out
+
+
+def add_space_option_flags(parser) -> None:
+    """One flag per declared option; ``None`` (or False) when not given, so a user's choice is visible."""
+    group = parser.add_argument_group("reading and writing data (options of the space)")
+    for name, decls in _declared_options().items():
+        first = decls[0][1]
+        if any(o.kind is not first.kind or o.choices != first.choices for _, o in decls):
+            raise TypeError(f"spaces declare option {name!r} with different types or choices")
+        help_text = "; ".join(f"{kind}: {o.help}" + (f" (default {o.default})" if o.default is not None else "")
+                              for kind, o in decls)
+        if first.kind is bool:
+            group.add_argument(first.flag, dest=name, action="store_true", default=None, help=help_text)
+        else:
+            group.add_argument(first.flag, dest=name, type=first.kind, choices=first.choices, default=None,
+                               metavar=first.metavar, help=help_text)
+
+
+def chosen_options(args, space_cls) -> dict:
+    """The declared options the user set on the command line, checked against the space ``space_cls``."""
+    declared = {o.name for o in (*space_cls.file_options, *space_cls.build_options)}
+    chosen = {}
+    for name, decls in _declared_options().items():
+        value = getattr(args, name, None)
+        if value is None or value is False:
+            continue
+        if name not in declared:
+            takes = ", ".join(o.flag for o in (*space_cls.file_options, *space_cls.build_options)) or "none"
+            raise InputError(f"{decls[0][1].flag} does not apply to --space {space_cls.kind} "
+                             f"(its options: {takes})", field=name)
+        chosen[name] = value
+    return chosen
