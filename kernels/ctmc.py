@@ -120,6 +120,7 @@ class CTMC:
         self.n_states = q.shape[0]
         self.rates = torch.tensor(q, dtype=DTYPE)
         self._cache: OrderedDict[float, torch.Tensor] = OrderedDict()
+        self._last: tuple[torch.Tensor, torch.Tensor] | None = None  # the last batch of times and its matrices
         n = self.n_states
         if _method in ("uniform", "absorbing"):
             self.method = _method
@@ -193,7 +194,7 @@ class CTMC:
         return self._transition_expm(tau)
 
     def _transition_expm(self, tau: torch.Tensor) -> torch.Tensor:
-        last = getattr(self, "_last", None)
+        last = self._last
         if last is not None and last[0].shape == tau.shape and torch.equal(last[0], tau):
             return last[1]
         out = self._transition_expm_uncached(tau)

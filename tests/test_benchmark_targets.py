@@ -21,6 +21,7 @@ import torch
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", "benchmarks"))
 
 import targets  # noqa: E402
+from stat_thresholds import sigma_threshold, p_value_threshold
 
 
 def mc_entropy(target, n, seed):
@@ -31,7 +32,7 @@ def mc_entropy(target, n, seed):
 def check_monte_carlo(target, n=20000, seed=11):
     # Monte Carlo -mean log p over target samples; tolerance 4 standard errors
     h, se = mc_entropy(target, n, seed)
-    assert abs(h - target.entropy()) < 4 * se, (h, se, target.entropy())
+    assert abs(h - target.entropy()) < sigma_threshold(6e-5) * se, (h, se, target.entropy())
 
 
 # ----- T² banana -------------------------------------------------------------------------------------
@@ -54,10 +55,10 @@ def test_torus_banana_sampler():
     tgt = targets.TorusBanana()
     x = tgt.sample(5000, 3).numpy()
     # φ marginal is vM(mu, k1): KS against scipy's von Mises CDF
-    assert scipy.stats.kstest(x[:, 0], scipy.stats.vonmises(tgt.k1, loc=tgt.mu).cdf).pvalue > 1e-3
+    assert scipy.stats.kstest(x[:, 0], scipy.stats.vonmises(tgt.k1, loc=tgt.mu).cdf).pvalue > p_value_threshold(1e-3)
     # the residual ψ - (nu + a sin φ), wrapped, is vM(0, k2) independently of φ
     res = np.remainder(x[:, 1] - tgt.nu - tgt.a * np.sin(x[:, 0]) + np.pi, 2 * np.pi) - np.pi
-    assert scipy.stats.kstest(res, scipy.stats.vonmises(tgt.k2).cdf).pvalue > 1e-3
+    assert scipy.stats.kstest(res, scipy.stats.vonmises(tgt.k2).cdf).pvalue > p_value_threshold(1e-3)
 
 
 # ----- S² ring --------------------------------------------------------------------------------------
@@ -84,13 +85,13 @@ def test_sphere_ring_sampler():
     s = math.sqrt(tgt.kappa)
     z_u = math.erf(s * (1 - tgt.c)) + math.erf(s * (1 + tgt.c))
     cdf = lambda v: (np.vectorize(math.erf)(s * (np.asarray(v) - tgt.c)) + math.erf(s * (1 + tgt.c))) / z_u  # noqa: E731
-    assert scipy.stats.kstest(u, cdf).pvalue > 1e-3  # u = μ·x against the erf CDF of the stated density
+    assert scipy.stats.kstest(u, cdf).pvalue > p_value_threshold(1e-3)  # u = μ·x against the erf CDF of the stated density
     # azimuth about μ uniform: KS against U(-π, π) in a frame built here
     e1 = np.cross(tgt.mu, [0.0, 0.0, 1.0])
     e1 /= np.linalg.norm(e1)
     e2 = np.cross(tgt.mu, e1)
     az = np.arctan2(x @ e2, x @ e1)
-    assert scipy.stats.kstest(az, scipy.stats.uniform(-np.pi, 2 * np.pi).cdf).pvalue > 1e-3
+    assert scipy.stats.kstest(az, scipy.stats.uniform(-np.pi, 2 * np.pi).cdf).pvalue > p_value_threshold(1e-3)
 
 
 # ----- SO(3) bimodal ---------------------------------------------------------------------------------
@@ -145,7 +146,7 @@ def test_so3_bimodal_sampler():
     assert abs(float(near0.double().mean()) - 0.5) < 4 * 0.5 / math.sqrt(4000)
     # angle to the nearer centre follows the IGSO(3) angle law (closed-form series CDF above)
     w = d.min(0).values.numpy()
-    assert scipy.stats.kstest(w, lambda v: igso3_angle_cdf(v, tgt.t)).pvalue > 1e-3
+    assert scipy.stats.kstest(w, lambda v: igso3_angle_cdf(v, tgt.t)).pvalue > p_value_threshold(1e-3)
 
 
 # ----- simplex ----------------------------------------------------------------------------------------
@@ -178,7 +179,7 @@ def test_simplex_sampler_and_density():
     assert np.abs(tgt.log_prob(x[:50]) - ref).max() < 1e-10
     # x1 is a mixture of Beta(a1, a2 + a3) laws: KS against scipy.stats.beta
     cdf = lambda v: sum(w * scipy.stats.beta(a[0], a[1:].sum()).cdf(v) for w, a in zip(tgt.weights, tgt.alphas))  # noqa: E731
-    assert scipy.stats.kstest(x[:, 0], cdf).pvalue > 1e-3
+    assert scipy.stats.kstest(x[:, 0], cdf).pvalue > p_value_threshold(1e-3)
 
 
 # ----- Markov source ----------------------------------------------------------------------------------
@@ -199,6 +200,6 @@ def test_markov_sampler():
     obs = np.zeros((4, 4))
     np.add.at(obs, (x[:, 5], x[:, 6]), 1)
     exp = 20000 * src.pi[:, None] * src.T
-    assert scipy.stats.chisquare(obs.ravel(), exp.ravel()).pvalue > 1e-3
+    assert scipy.stats.chisquare(obs.ravel(), exp.ravel()).pvalue > p_value_threshold(1e-3)
     # the first position is stationary too
-    assert scipy.stats.chisquare(np.bincount(x[:, 0], minlength=4), 20000 * src.pi).pvalue > 1e-3
+    assert scipy.stats.chisquare(np.bincount(x[:, 0], minlength=4), 20000 * src.pi).pvalue > p_value_threshold(1e-3)

@@ -26,6 +26,7 @@ from heatwalk.kernels.ctmc import CTMC
 from heatwalk.core.schedule import TimeSchedule
 from heatwalk.io.sequence_files import read_sequences, write_sequences
 from heatwalk.spaces import Categories, from_config
+from stat_thresholds import sigma_threshold
 
 EPS = float(np.finfo(np.float64).eps)
 
@@ -256,7 +257,7 @@ def test_elbo_with_exact_denoiser_equals_nll(process):
         # and the Monte Carlo estimator used by Model.elbo agrees within 4 standard errors
         est = obj.elbo(None, ALL3[i:i + 1].repeat(8, 1), gen(i), n_time_samples=2000)
         mean, se = float(est.nats.mean()), float(est.stderr.pow(2).sum().sqrt()) / 8
-        assert abs(mean - bound) < 4 * se + 1e-3, (mean, se, bound)
+        assert abs(mean - bound) < sigma_threshold(6e-5) * se + 1e-3, (mean, se, bound)
 
 
 # ----- a model fitted to a stationary Markov chain ------------------------------------------------------

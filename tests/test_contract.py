@@ -1,14 +1,12 @@
-"""Every continuous space passes the shared contract of tests/contract.py.
+"""Every space passes the shared contract of tests/contract.py.
 
-To add a space: append a factory to SPACES.
+To add a space: append a factory to SPACES (a manifold) or FINITE_SPACES (a finite state space).
 """
 
 import pytest
 
-from contract import ALL_CHECKS
-from heatwalk.spaces import Sphere, Torus
-from heatwalk.spaces import SO3
-from heatwalk.spaces import Simplex
+from contract import ALL_CHECKS, FINITE_CHECKS
+from heatwalk.spaces import SO3, Categories, Euclidean, Simplex, Sphere, Torus
 
 SPACES = {
     "torus1": lambda: Torus(1),
@@ -19,6 +17,12 @@ SPACES = {
     "so3": SO3,
     "simplex3": lambda: Simplex(3),
     "simplex20": lambda: Simplex(20),
+}
+
+FINITE_SPACES = {
+    "categories_absorbing": lambda: Categories(4, 5, process="absorbing"),
+    "categories_uniform": lambda: Categories(3, 2, process="uniform"),
+    "categories_rates": lambda: Categories(3, 4, rates=[[-1.0, 0.6, 0.4], [0.2, -0.5, 0.3], [0.5, 0.5, -1.0]]),
 }
 
 # Per-space keyword arguments of individual checks (space name -> check name -> kwargs).
@@ -34,3 +38,14 @@ CHECK_OPTIONS = {
 @pytest.mark.parametrize("name", sorted(SPACES))
 def test_contract(name, check):
     check(SPACES[name](), **CHECK_OPTIONS.get(name, {}).get(check.__name__, {}))
+
+
+@pytest.mark.parametrize("check", FINITE_CHECKS, ids=lambda c: c.__name__.removeprefix("check_"))
+@pytest.mark.parametrize("name", sorted(FINITE_SPACES))
+def test_finite_contract(name, check):
+    check(FINITE_SPACES[name]())
+
+
+@pytest.mark.parametrize("check", FINITE_CHECKS, ids=lambda c: c.__name__.removeprefix("check_"))
+def test_euclidean_contract(check):
+    check(Euclidean(2))

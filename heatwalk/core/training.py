@@ -64,16 +64,12 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
         with ``resume=True`` training continues from the checkpoint found there.
     threads : torch intra-op threads for the run (default: leave torch's setting).
     """
-    check_positive_int("steps", steps)
-    check_positive_int("batch_size", batch_size)
-    check_positive_int("checkpoint_every", checkpoint_every)
-    check_number("ema_decay", ema_decay, minimum=0, maximum=1, open_maximum=True)
-    check_number("lr", lr, minimum=0, open_minimum=True)
+    _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads)
     x_data = space.validate(data)
     if x_data.shape[0] < 2:
         raise InputError(f"need at least 2 data points to fit, got {x_data.shape[0]}", field="data")
     if threads is not None:
-        torch.set_num_threads(check_positive_int("threads", threads))
+        torch.set_num_threads(threads)
 
     objective = make_objective(space, time_range=time_range)
     run = _start(objective, network, lr, steps, seed)
@@ -107,6 +103,16 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
         "resumed_from_step": start,
     }
     return Model(space, objective, run.net, record)
+
+
+def _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads) -> None:
+    check_positive_int("steps", steps)
+    check_positive_int("batch_size", batch_size)
+    check_positive_int("checkpoint_every", checkpoint_every)
+    check_number("ema_decay", ema_decay, minimum=0, maximum=1, open_maximum=True)
+    check_number("lr", lr, minimum=0, open_minimum=True)
+    if threads is not None:
+        check_positive_int("threads", threads)
 
 
 def _start(objective, network: dict | None, lr: float, steps: int, seed: int) -> _Run:
