@@ -285,11 +285,14 @@ class Space(ABC):
     def check_time(self, t, batch: torch.Size, device=None) -> torch.Tensor:
         """Times as float64 of shape ``batch``: finite, > 0 and <= ``max_time``, else InputError."""
         t = torch.as_tensor(t, dtype=DTYPE, device=device)
-        bad = ~torch.isfinite(t) | (t <= 0) | (t > self.max_time)
-        if bool(bad.any()):
+        ok = (t > 0) & (t <= self.max_time)  # False for NaN; +inf fails the upper bound or is caught below
+        if not bool(ok.all()) or (math.isinf(self.max_time) and bool(torch.isinf(t).any())):
+            bad = ~(ok & torch.isfinite(t))
             value = float(t[bad].flatten()[0])
             upper = "" if math.isinf(self.max_time) else f" and <= {self.max_time:g}"
             raise InputError(f"{self!r}: diffusion time must be finite and > 0{upper}, got {value}", field="t")
+        if t.shape == batch:
+            return t
         try:
             return t.expand(batch) if t.dim() == 0 else torch.broadcast_to(t, batch)
         except RuntimeError:
@@ -298,9 +301,17 @@ class Space(ABC):
 
     def _broadcast(self, xt, x0, t):
         """Broadcast two point batches and t; returns flat points, flat times and the batch shape."""
-        shape = torch.broadcast_shapes(self.batch_shape(xt, "xt"), self.batch_shape(x0, "x0"),
-                                       torch.as_tensor(t).shape)
+        bt, b0 = self.batch_shape(xt, "xt"), self.batch_shape(x0, "x0")
+        t_shape = t.shape if isinstance(t, torch.Tensor) else torch.Size()
+        if bt == b0 and (t_shape == bt or len(t_shape) == 0):
+            shape = bt
+        else:
+            shape = torch.broadcast_shapes(bt, b0, t_shape)
+            xt = xt.expand(*shape, *self.ambient_shape)
+            x0 = x0.expand(*shape, *self.ambient_shape)
         t = self.check_time(t, shape, device=xt.device)
-        xt = xt.expand(*shape, *self.ambient_shape).reshape(-1, *self.ambient_shape)
-        x0 = x0.expand(*shape, *self.ambient_shape).reshape(-1, *self.ambient_shape)
-        return xt, x0, t.reshape(-1), shape
+        if len(shape) != 1:
+            xt = xt.reshape(-1, *self.ambient_shape)
+            x0 = x0.reshape(-1, *self.ambient_shape)
+            t = t.reshape(-1)
+        return xt, x0, t, shape
