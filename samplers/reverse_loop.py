@@ -5,7 +5,10 @@ prior at t_max, or a given ``x_init``), takes the field's time grid
 ``field.grid(steps)`` (steps + 1 times from t_max down to t_min), runs
 ``x = step(x, i, t_i, t_{i+1})`` for i = 0 … steps - 1 under a progress bar,
 and applies an optional ``finish(x, t_min)`` (the discrete samplers' final
-draw of x_0). All randomness comes from the ``generator`` the step closes over.
+draw of x_0). After the start and after every step the field's
+``constrain(x, t, generator, final)`` is applied (the identity unless
+coordinates are fixed; ``final`` on the last state). All randomness comes from
+the ``generator`` the step closes over.
 """
 
 from __future__ import annotations
@@ -37,7 +40,10 @@ def reverse_loop(field, n: int, steps: int, step: Callable, *, generator: torch.
     """Run ``step`` over the field's reverse-time grid from the prior (or ``x_init``); see the module docstring."""
     check_positive_int("steps", steps)
     times = field.grid(steps)
-    x = initial_state(field, n, generator, x_init)
+    x = field.constrain(initial_state(field, n, generator, x_init), times[0], generator)
     for i in tqdm(range(steps), desc=desc, disable=not progress, leave=False):
-        x = step(x, i, times[i], times[i + 1])
-    return x if finish is None else finish(x, times[-1])
+        x = field.constrain(step(x, i, times[i], times[i + 1]), times[i + 1], generator,
+                            final=finish is None and i == steps - 1)
+    if finish is None:
+        return x
+    return field.constrain(finish(x, times[-1]), times[-1], generator, final=True)

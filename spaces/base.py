@@ -36,7 +36,9 @@ which never test which space they hold):
 
   ``"angles"``  coordinates are angles in radians (circular metrics apply);
   ``"absorbing"``  a finite chain with a mask state (the unmasking sampler);
-  ``"sequences"``  points are sequences of states at L positions (k-mer metrics).
+  ``"sequences"``  points are sequences of states at L positions (k-mer metrics);
+  ``"coordinates"``  points are vectors of flat coordinates that can be fixed one by
+  one, with reconstruction guidance (torus, R^d).
 
 Conventions
 -----------
@@ -65,6 +67,7 @@ CAPABILITIES = {
     "angles": "coordinates that are angles (a torus)",
     "absorbing": "an absorbing chain (process='absorbing')",
     "sequences": "points that are sequences of states",
+    "coordinates": "a space of flat coordinates (a torus or R^d)",
 }
 
 
@@ -86,6 +89,21 @@ class Option:
     @property
     def flag(self) -> str:
         return "--" + self.name.replace("_", "-")
+
+
+@dataclass
+class GivenPart:
+    """Known coordinates of every sample: ``mask`` (bool, one point's shape) and ``values`` (n, *ambient_shape).
+
+    Entries of ``values`` outside the mask are placeholders (the free part is drawn by the sampler).
+    """
+
+    mask: torch.Tensor
+    values: torch.Tensor
+
+    @property
+    def indices(self) -> list[int]:
+        return [int(i) for i in self.mask.reshape(-1).nonzero().flatten()]
 
 
 def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
@@ -271,6 +289,43 @@ class Space(ABC):
     @abstractmethod
     def _log_kernel(self, xt: torch.Tensor, x0: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
         """``log_kernel`` on flat points (N, *ambient_shape) and times (N,): shape (N,)."""
+
+    # ----- fixed (known) coordinates -------------------------------------------------------------
+    def given_part(self, given: dict, n: int) -> GivenPart:
+        """Parse ``given={index: values}`` for n samples; spaces with coordinates or positions override."""
+        raise InputError(f"{self!r} has no coordinates that can be fixed; steer its samples with guide= instead",
+                         field="given")
+
+    def replace_given(self, x: torch.Tensor, part: GivenPart, t, generator=None, final: bool = False):
+        """The replacement step: the known part redrawn from the forward kernel at time t (its values if final)."""
+        if final:
+            return torch.where(part.mask, part.values, x)
+        known = self.sample_forward(part.values, float(t), generator)
+        return torch.where(part.mask, known, x)
+
+    def _coordinate_given(self, given, n: int, what: str, convert) -> GivenPart:
+        """Shared parser for spaces whose points are vectors of coordinates (one index = one coordinate).
+
+        ``convert(index, values (n,)) -> values`` checks one coordinate's values and returns them as stored.
+        """
+        if not isinstance(given, dict) or not given:
+            raise InputError(f"given: expected a non-empty dict {{{what}: value(s)}}, got {given!r}", field="given")
+        size = self.ambient_shape[0]
+        mask = torch.zeros(size, dtype=torch.bool)
+        values = torch.zeros(n, size, dtype=DTYPE)
+        for index, value in given.items():
+            if isinstance(index, bool) or not isinstance(index, int) or not 0 <= index < size:
+                raise InputError(f"given: {what} {index!r} does not exist in {self!r} ({what}s 0 … {size - 1})",
+                                 field="given")
+            v = torch.as_tensor(value, dtype=DTYPE).reshape(-1)
+            if v.numel() not in (1, n):
+                raise InputError(f"given: {what} {index} has {v.numel()} values; give one value or one per sample "
+                                 f"({n})", field="given")
+            mask[index] = True
+            values[:, index] = convert(index, v.expand(n))
+        if bool(mask.all()):
+            raise InputError(f"given: every {what} of {self!r} is fixed; nothing is left to sample", field="given")
+        return GivenPart(mask=mask, values=values)
 
     # ----- shared checks ------------------------------------------------------------------------
     def batch_shape(self, x: torch.Tensor, what: str = "points") -> torch.Size:

@@ -38,7 +38,7 @@ from heatwalk.errors import InputError
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
-from heatwalk.spaces.base import Option
+from heatwalk.spaces.base import GivenPart, Option
 from heatwalk.spaces.finite import FiniteStateSpace
 
 PROCESSES = ("uniform", "absorbing", "rates")
@@ -166,6 +166,51 @@ class Categories(FiniteStateSpace):
     def column_names(self, **options) -> list[str]:
         self.check_file_options(options)
         return [f"pos{i}" for i in range(self.L)]
+
+    # ----- fixed positions -------------------------------------------------------------------------
+    def given_part(self, given: dict, n: int):
+        """``given={position: state}``: a state code in [0, K) or a symbol of the alphabet, one or one per sample."""
+        if not isinstance(given, dict) or not given:
+            raise InputError(f"given: expected a non-empty dict {{position: state(s)}}, got {given!r}", field="given")
+        mask = torch.zeros(self.L, dtype=torch.bool)
+        values = torch.zeros(n, self.L, dtype=torch.int64)
+        for pos, value in given.items():
+            if isinstance(pos, bool) or not isinstance(pos, int) or not 0 <= pos < self.L:
+                raise InputError(f"given: position {pos!r} does not exist in {self!r} (positions 0 … {self.L - 1})",
+                                 field="given")
+            codes = self._given_codes(pos, value)
+            if codes.numel() not in (1, n):
+                raise InputError(f"given: position {pos} has {codes.numel()} states; give one or one per sample "
+                                 f"({n})", field="given")
+            mask[pos] = True
+            values[:, pos] = codes.expand(n)
+        if bool(mask.all()):
+            raise InputError(f"given: every position of {self!r} is fixed; nothing is left to sample", field="given")
+        return GivenPart(mask=mask, values=values)
+
+    def _given_codes(self, pos: int, value) -> torch.Tensor:
+        items = [value] if isinstance(value, (str, int)) or (isinstance(value, torch.Tensor) and value.dim() == 0) \
+            else list(value)
+        codes = []
+        for v in items:
+            if isinstance(v, str):
+                if self.alphabet is None or v not in self.alphabet:
+                    raise InputError(f"given: position {pos}: symbol {v!r} is not in the alphabet "
+                                     f"{''.join(self.alphabet or [])!r}", field="given")
+                codes.append(self.alphabet.index(v))
+            else:
+                k = int(v) if not isinstance(v, bool) and float(v) == int(v) else -1
+                if not 0 <= k < self.K:
+                    raise InputError(f"given: position {pos}: state {v!r} is not a state code in [0, {self.K})",
+                                     field="given")
+                codes.append(k)
+        return torch.tensor(codes, dtype=torch.int64)
+
+    def replace_given(self, x, part, t, generator=None, final: bool = False):
+        """Absorbing chain: the given tokens stay unmasked at every time (exact); otherwise the forward redraw."""
+        if final or self.mask_state is not None:
+            return torch.where(part.mask, part.values, x)
+        return super().replace_given(x, part, t, generator)
 
     def random_uniform(self, n, generator=None):
         return torch.randint(self.K, (n, self.L), generator=generator)

@@ -108,6 +108,19 @@ class Manifold(Space):
         """
         return torch.zeros_like(x)
 
+    def denoised_mean(self, x: torch.Tensor, score: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
+        """The denoiser's estimate of x_0 from the score at x_t: exp_x(t · s).
+
+        Tweedie's formula E[x_0 | x_t] = x_t + t ∇ log p_t(x_t) for Brownian motion on a flat space
+        (exact there); on curved spaces the geodesic version is a first-order approximation. Spaces with a
+        drift override it. ``t`` has shape (n,).
+        """
+        return self.exp(x, t.reshape(-1, *([1] * len(self.ambient_shape))) * score)
+
+    def denoised_scale(self, t: torch.Tensor) -> torch.Tensor:
+        """c_t with Cov[x_0 | x_t] = c_t ∂E[x_0 | x_t]/∂x_t (second-order Tweedie): t for Brownian motion."""
+        return t
+
     def log_volume_density(self, x: torch.Tensor) -> torch.Tensor:
         """log of d(Riemannian volume)/d(reference measure) at x; 0 where they coincide."""
         batch = x.shape[: x.dim() - len(self.ambient_shape)]

@@ -384,6 +384,17 @@ class Simplex(Manifold):
         s = ou_log_prob_and_score(ilr(xt), ilr(x0), t)[1]
         return s @ _helmert(self.K).to(xt.device, xt.dtype)
 
+    def denoised_mean(self, x, score, t):
+        """Tweedie for the OU flow in ilr coordinates: ilr x̂_0 = e^{t/2} (y + (1 - e^{-t}) ∇_y log p_t)."""
+        t = t.reshape(-1, 1)
+        y = ilr(x)
+        s_ilr = score @ _helmert(self.K).to(x.device, x.dtype).T
+        return ilr_inverse(torch.exp(0.5 * t) * (y - torch.expm1(-t) * s_ilr))
+
+    def denoised_scale(self, t):
+        """c_t = e^{t/2} (1 - e^{-t}) of the OU flow (see :meth:`Manifold.denoised_scale`)."""
+        return torch.exp(0.5 * t) * -torch.expm1(-t)
+
     def log_volume_density(self, x):
         """log d(Aitchison volume)/d(Lebesgue on x_1..x_{K-1}) = -(1/2) log K - Σ log x_i (module docstring)."""
         return -0.5 * math.log(self.K) - torch.log(x).sum(-1)

@@ -31,7 +31,7 @@ class Torus(Manifold):
 
     kind = "torus"
     file_options = (Option("degrees", bool, "angles are in degrees (default: radians)"),)
-    capabilities = frozenset({"angles"})
+    capabilities = frozenset({"angles", "coordinates"})
 
     def __init__(self, n: int = 1):
         self.n = check_positive_int("Torus: n", n)
@@ -139,6 +139,16 @@ class Torus(Manifold):
     def _log_kernel_and_score(self, xt, x0, t):
         lp, sc = self._per_angle(xt, x0, t)
         return lp.sum(-1), sc
+
+    # --- fixed coordinates -----------------------------------------------------------------
+    def given_part(self, given: dict, n: int):
+        """``given={angle index: radians}``: one angle or one per sample, finite (wrapped to [-π, π))."""
+        def convert(index, v):
+            if not bool(torch.isfinite(v).all()):
+                raise InputError(f"given: angle {index} has a value that is NaN or infinite", field="given")
+            return wrap_angle(v)
+
+        return self._coordinate_given(given, n, "angle", convert)
 
     # --- pictures --------------------------------------------------------------------------
     def plot_coordinates(self, x):

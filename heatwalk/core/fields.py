@@ -10,6 +10,11 @@ Two kinds, named by ``kind`` (samplers state which kinds they accept):
 
 Both carry their ``space`` and ``schedule`` and expose the sampling time grid
 the same way: ``grid(steps)`` gives steps + 1 times from t_max down to t_min.
+Both have ``constrain(x, t, generator, final)``, which the reverse loop applies
+after every step: the identity, or — when coordinates are fixed by the
+replacement method — the known part redrawn at time t (set to its values at
+the end); see :mod:`heatwalk.core.conditioning`. ``fixes_coordinates`` says
+whether it does anything (deterministic samplers refuse such fields).
 """
 
 from __future__ import annotations
@@ -33,10 +38,18 @@ class ScoreField:
 
     kind = "score"
 
-    def __init__(self, space, schedule: TimeSchedule, score_fn):
+    def __init__(self, space, schedule: TimeSchedule, score_fn, constrain_fn=None):
         self.space = space
         self.schedule = schedule
         self._score_fn = score_fn
+        self._constrain_fn = constrain_fn
+
+    @property
+    def fixes_coordinates(self) -> bool:
+        return self._constrain_fn is not None
+
+    def constrain(self, x, t, generator=None, final: bool = False):
+        return x if self._constrain_fn is None else self._constrain_fn(x, t, generator, final)
 
     def score(self, x: torch.Tensor, t) -> torch.Tensor:
         return self._score_fn(x, _batch_times(t, x.shape[0]))
@@ -56,10 +69,18 @@ class X0ProbabilityField:
 
     kind = "x0_probabilities"
 
-    def __init__(self, space, schedule: TimeSchedule, log_x0_fn):
+    def __init__(self, space, schedule: TimeSchedule, log_x0_fn, constrain_fn=None):
         self.space = space
         self.schedule = schedule
         self._log_x0_fn = log_x0_fn
+        self._constrain_fn = constrain_fn
+
+    @property
+    def fixes_coordinates(self) -> bool:
+        return self._constrain_fn is not None
+
+    def constrain(self, x, t, generator=None, final: bool = False):
+        return x if self._constrain_fn is None else self._constrain_fn(x, t, generator, final)
 
     def log_x0_probs(self, xt: torch.Tensor, t) -> torch.Tensor:
         """(n, L, K) log p_θ(x_0,l = a | x_t), -inf on states that cannot have produced x_t."""

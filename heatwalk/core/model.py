@@ -18,7 +18,9 @@ from pathlib import Path
 import torch
 from torch import nn
 
-from heatwalk.checks import check_positive_int
+from heatwalk.checks import check_choice, check_positive_int
+from heatwalk.core.conditioning import GIVEN_METHODS, Conditioning, check_weight
+from heatwalk.core.labels import indices_for
 from heatwalk.core.networks import build_network, network_name
 from heatwalk.core.objectives import make_objective
 from heatwalk.errors import InputError
@@ -49,8 +51,13 @@ class Model:
 
     @property
     def field(self):
-        """What the samplers consume (e.g. the learned score field)."""
+        """What the samplers consume (e.g. the learned score field), unconditioned."""
         return self.objective.field(self.network)
+
+    @property
+    def classes(self) -> list | None:
+        """Class names of a model fitted with labels (index order), else None."""
+        return self.objective.classes
 
     def sampler(self, name: str | None = None):
         """The registered sampler ``name`` (default: the objective's), checked against this model."""
@@ -69,34 +76,76 @@ class Model:
         return entry
 
     def sample(self, n: int, steps: int = 500, sampler: str | None = None, seed: int | None = 0,
-               generator: torch.Generator | None = None, progress: bool = True, **options) -> torch.Tensor:
-        """Draw ``n`` points with ``steps`` reverse steps of ``sampler`` (default: the objective's)."""
+               generator: torch.Generator | None = None, progress: bool = True, *, label=None,
+               guidance: float = 1.0, given: dict | None = None, given_method: str | None = None, guide=None,
+               guide_scale: float = 1.0, **options) -> torch.Tensor:
+        """Draw ``n`` points with ``steps`` reverse steps of ``sampler`` (default: the objective's).
+
+        Conditioning (see :mod:`heatwalk.core.conditioning`):
+
+        label, guidance : a class name (or one per sample) of a model fitted with labels, and the
+            classifier-free guidance weight w (0: unconditional, 1: conditional, > 1: sharper).
+        given, given_method : ``{index: value(s)}`` of fixed coordinates (torus angles, R^d coordinates,
+            sequence positions, product factors), one value or one per sample; method "replacement" or
+            "reconstruction" (default: reconstruction where the space supports it, else replacement).
+        guide, guide_scale : ``fn(x0_hat) -> log-likelihood per sample`` steering samples, and its weight λ.
+        """
         check_positive_int("n", n)
         entry = self.sampler(sampler)
+        cond = self.conditioning(n, label=label, guidance=guidance, given=given, given_method=given_method,
+                                 guide=guide, guide_scale=guide_scale)
         if generator is None:
             generator = torch.Generator().manual_seed(0 if seed is None else seed)
+        field = self.objective.field(self.network, None if cond.empty else cond)
         with torch.no_grad():
-            return entry.function(self.field, n, steps=steps, generator=generator, progress=progress, **options)
+            return entry.function(field, n, steps=steps, generator=generator, progress=progress, **options)
+
+    def conditioning(self, n: int, *, label=None, guidance: float = 1.0, given=None, given_method=None, guide=None,
+                     guide_scale: float = 1.0) -> Conditioning:
+        """Check the conditioning arguments of :meth:`sample` (before any sampling) and gather them."""
+        guidance = check_weight("guidance", guidance)
+        guide_scale = check_weight("guide_scale", guide_scale)
+        if guide is not None and not callable(guide):
+            raise InputError(f"guide must be a function of the denoised estimate, got {type(guide).__name__}",
+                             field="guide")
+        part = None if given is None else self.space.given_part(given, n)
+        if given_method is None:
+            given_method = ("trained" if self.objective.inpainting else "reconstruction") \
+                if part is not None and "coordinates" in self.space.capabilities else "replacement"
+        check_choice("given_method", given_method, GIVEN_METHODS)
+        if given_method == "reconstruction" and part is not None and "coordinates" not in self.space.capabilities:
+            raise InputError(f"given_method 'reconstruction' needs a space of coordinates (torus, R^d); "
+                             f"{self.space!r} supports 'replacement'", field="given_method")
+        labels = indices_for(self.classes, label, n)
+        return Conditioning(labels=labels, guidance=guidance, guide=guide, guide_scale=guide_scale, given=part,
+                            given_method=given_method)
 
     def elbo(self, x, n_time_samples: int = 32, seed: int | None = 0,
-             generator: torch.Generator | None = None, **options):
+             generator: torch.Generator | None = None, label=None, **options):
         """Upper bound on -log p(x) per data point, from the objective's ELBO (nats; see the objective).
 
         Objectives without a likelihood bound raise :class:`InputError`.
         """
         if generator is None:
             generator = torch.Generator().manual_seed(0 if seed is None else seed)
+        x = self.space.validate(x)
+        labels = indices_for(self.classes, label, x.shape[0])
         with torch.no_grad():
-            return self.objective.elbo(self.network, self.space.validate(x), generator, n_time_samples, **options)
+            return self.objective.elbo(self.network, x, generator, n_time_samples, labels=labels, **options)
 
-    def log_prob(self, x, **options) -> dict:
+    def log_prob(self, x, label=None, **options) -> dict:
         """Log-likelihood of points ``x`` in nats, w.r.t. the space's reference measure.
 
         For score models: the probability-flow ODE (exact up to solver tolerance); for discrete
         models: the negative ELBO, a lower bound on log p, flagged by ``bound = True``.
+        ``label`` (one class or one per point) gives the conditional likelihood of a labelled model.
         ``options`` go to the objective (e.g. ``method``, ``rtol``, ``divergence``, ``n_probes``).
         """
-        return self.objective.log_prob(self.network, x, **options)
+        if label is None:
+            return self.objective.log_prob(self.network, x, **options)
+        x = self.space.validate(x)
+        return self.objective.log_prob(self.network, x, labels=indices_for(self.classes, label, x.shape[0]),
+                                       **options)
 
     # ----- persistence ---------------------------------------------------------------------
     def config(self) -> dict:

@@ -23,6 +23,7 @@ import torch
 from tqdm.auto import tqdm
 
 from heatwalk.checks import check_number, check_positive_int
+from heatwalk.core.labels import encode_labels
 from heatwalk.core.model import Model
 from heatwalk.core.networks import network_name
 from heatwalk.core.objectives import make_objective
@@ -48,7 +49,8 @@ class _Run:
 def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e-3,
         ema_decay: float = 0.999, seed: int = 0, network: dict | None = None,
         time_range: tuple[float, float] | None = None, checkpoint_dir=None, checkpoint_every: int = 1000,
-        resume: bool = False, progress: bool = True, threads: int | None = None) -> Model:
+        resume: bool = False, progress: bool = True, threads: int | None = None, labels=None,
+        label_dropout: float = 0.1, inpainting: bool = False) -> Model:
     """Fit a diffusion model to ``data`` (points on ``space``) and return a :class:`Model`.
 
     Parameters
@@ -63,6 +65,11 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     checkpoint_dir : folder for periodic checkpoints (every ``checkpoint_every`` steps and at the end);
         with ``resume=True`` training continues from the checkpoint found there.
     threads : torch intra-op threads for the run (default: leave torch's setting).
+    labels : one class name (int or string) per data point: the model learns the law given the class and,
+        with each label dropped with probability ``label_dropout`` (default 0.1), the unconditional law,
+        for classifier-free guidance (``Model.sample(label=..., guidance=...)``).
+    inpainting : also train the network to condition on known coordinates (torus, R^d), so that
+        ``Model.sample(given=...)`` is exact (see :mod:`heatwalk.core.conditioning`).
     """
     _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads)
     x_data = space.validate(data)
@@ -71,7 +78,9 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     if threads is not None:
         torch.set_num_threads(threads)
 
-    objective = make_objective(space, time_range=time_range)
+    classes, label_idx = (None, None) if labels is None else encode_labels(labels, x_data.shape[0])
+    objective = make_objective(space, time_range=time_range, classes=classes, label_dropout=label_dropout,
+                               inpainting=inpainting)
     run = _start(objective, network, lr, steps, seed)
     run_config = {
         "space": space.config(), "objective": objective.config(),
@@ -88,7 +97,7 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
             start = _restore(ckpt_path, run_config, run)
 
     t0 = time.perf_counter()
-    losses = _train(objective, run, x_data, start, steps, batch_size, ema_decay, progress,
+    losses = _train(objective, run, (x_data, label_idx), start, steps, batch_size, ema_decay, progress,
                     lambda step: _save_checkpoint(ckpt_path, run_config, step, run) if ckpt_path else None,
                     checkpoint_every)
     elapsed = time.perf_counter() - t0
@@ -127,8 +136,12 @@ def _start(objective, network: dict | None, lr: float, steps: int, seed: int) ->
     return _Run(net, ema, opt, sched, torch.Generator().manual_seed(seed))
 
 
-def _train(objective, run: _Run, x_data, start, steps, batch_size, ema_decay, progress, save, every) -> list[float]:
-    """Adam steps start … steps-1 with EMA updates; ``save(step)`` at checkpoint times. Returns the losses."""
+def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, progress, save, every) -> list[float]:
+    """Adam steps start … steps-1 with EMA updates; ``save(step)`` at checkpoint times. Returns the losses.
+
+    ``data`` is (points, class indices or None).
+    """
+    x_data, label_idx = data
     losses: list[float] = []
     params = list(run.net.parameters())
     run.net.train()
@@ -136,7 +149,10 @@ def _train(objective, run: _Run, x_data, start, steps, batch_size, ema_decay, pr
     running = None
     for step in bar:
         idx = torch.randint(x_data.shape[0], (batch_size,), generator=run.gen)
-        loss = objective.loss(run.net, x_data[idx], run.gen)
+        if label_idx is None:
+            loss = objective.loss(run.net, x_data[idx], run.gen)
+        else:
+            loss = objective.loss(run.net, x_data[idx], run.gen, labels=label_idx[idx])
         run.opt.zero_grad(set_to_none=True)
         loss.backward()
         run.opt.step()

@@ -19,11 +19,16 @@ __all__ = ["OBJECTIVES", "Objective", "ScoreMatching", "DiscreteELBO", "ScoreFie
            "make_objective"]
 
 
-def make_objective(space, config: dict | None = None, time_range: tuple[float, float] | None = None) -> Objective:
-    """Objective for ``space``: from a saved ``config`` or the space's defaults."""
+def make_objective(space, config: dict | None = None, time_range: tuple[float, float] | None = None,
+                   classes: list | None = None, label_dropout: float = 0.1, inpainting: bool = False) -> Objective:
+    """Objective for ``space``: from a saved ``config`` or the space's defaults (with ``classes`` if labelled)."""
     if config is None:
         t_min, t_max = time_range if time_range is not None else space.time_range
         config = {"name": space.objective_name, "schedule": {"t_min": t_min, "t_max": t_max}}
+        if classes is not None:
+            config.update(classes=list(classes), label_dropout=label_dropout)
+        if inpainting:
+            config["inpainting"] = True
     name = config["name"]
     if name not in OBJECTIVES:
         raise InputError(f"unknown objective {name!r}; known: {sorted(OBJECTIVES)}", field="objective")

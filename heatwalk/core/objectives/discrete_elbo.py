@@ -35,6 +35,7 @@ import torch
 from torch import nn
 
 from heatwalk.checks import check_int, check_number
+from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gradient
 from heatwalk.core.fields import X0ProbabilityField
 from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.networks.transformer import TransformerDenoiser
@@ -84,14 +85,15 @@ class DiscreteELBO(Objective):
     default_sampler = "ancestral"
     likelihood_is_bound = True
 
-    def __init__(self, space, schedule: TimeSchedule, ce_weight: float = 0.0, recon_fraction: float = 0.25):
+    def __init__(self, space, schedule: TimeSchedule, ce_weight: float = 0.0, recon_fraction: float = 0.25,
+                 classes=None, label_dropout: float = 0.1, inpainting: bool = False):
         if not isinstance(space, FiniteStateSpace):
             raise InputError(f"the discrete ELBO needs a finite state space, got {type(space).__name__}",
                              field="space")
         if schedule.t_max > 1.0:
             raise InputError(f"time range: t_max must be <= 1 on a finite space (t = 1 is the prior), "
                              f"got {schedule.t_max}", field="time_range")
-        super().__init__(space, schedule)
+        super().__init__(space, schedule, classes, label_dropout, inpainting)
         self.ce_weight = check_number("ce_weight", ce_weight, minimum=0)
         self.recon_fraction = check_number("recon_fraction", recon_fraction, minimum=0, open_minimum=True, maximum=1)
         states = torch.arange(space.K).reshape(-1, 1).expand(-1, space.L)
@@ -102,7 +104,7 @@ class DiscreteELBO(Objective):
     @classmethod
     def from_config(cls, space, config: dict) -> "DiscreteELBO":
         extra = {k: config[k] for k in ("ce_weight", "recon_fraction") if k in config}
-        return cls(space, TimeSchedule(**config["schedule"]), **extra)
+        return cls(space, TimeSchedule(**config["schedule"]), **extra, **cls._label_config(config))
 
     def config(self) -> dict:
         return {**super().config(), "ce_weight": self.ce_weight, "recon_fraction": self.recon_fraction}
@@ -136,19 +138,46 @@ class DiscreteELBO(Objective):
                              field="network")
         cfg = {**defaults, **options}
         if arch == "transformer":
-            return TransformerDenoiser(sp.L, sp.n_states, sp.K, self.schedule.n_features, **cfg)
-        return MLPDenoiser(sp.L * sp.n_states, self.schedule.n_features, sp.L * sp.K, **cfg)
+            return TransformerDenoiser(sp.L, sp.n_states, sp.K, self.condition_dim, **cfg)
+        return MLPDenoiser(sp.L * sp.n_states, self.condition_dim, sp.L * sp.K, **cfg)
 
-    def log_x0_probs(self, net: nn.Module, xt: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
-        """(n, L, K) float64 log-probabilities of x_0 restricted to the states consistent with x_t."""
+    def logits(self, net: nn.Module, xt: torch.Tensor, t: torch.Tensor, labels=None) -> torch.Tensor:
+        """(n, L, K) float64 raw x_0 logits of the network."""
         sp = self.space
-        logits = net(sp.embed(xt).float(), self.schedule.features(t).float()).double()
-        logits = logits.reshape(xt.shape[0], sp.L, sp.K)
-        support = sp.x0_support(xt, t)
+        out = net(sp.embed(xt).float(), self.condition_features(t, labels).float()).double()
+        return out.reshape(xt.shape[0], sp.L, sp.K)
+
+    def log_x0_probs(self, net: nn.Module, xt: torch.Tensor, t: torch.Tensor, labels=None) -> torch.Tensor:
+        """(n, L, K) float64 log-probabilities of x_0 restricted to the states consistent with x_t."""
+        return self._restrict(self.logits(net, xt, t, labels), xt, t)
+
+    def _restrict(self, logits, xt, t):
+        support = self.space.x0_support(xt, t)
         return torch.log_softmax(logits.masked_fill(~support, -math.inf), dim=-1)
 
-    def field(self, net: nn.Module) -> X0ProbabilityField:
-        return X0ProbabilityField(self.space, self.schedule, lambda xt, t: self.log_x0_probs(net, xt, t))
+    def field(self, net: nn.Module, conditioning: Conditioning | None = None) -> X0ProbabilityField:
+        c = conditioning or Conditioning()
+        if c.given is not None and c.given_method != "replacement":
+            raise InputError(f"given_method {c.given_method!r} does not apply to a finite space; positions are fixed "
+                             f"by replacement (exact on the absorbing chain)", field="given_method")
+
+        def log_x0_fn(xt, t):
+            uncond = self.logits(net, xt, t, None) if (c.labels is None or c.guidance != 1.0) else None
+            cond = self.logits(net, xt, t, c.labels) if (c.labels is not None and c.guidance != 0.0) else None
+            log_p = self._restrict(combine_guidance(uncond, cond, c.guidance), xt, t)
+            if c.guide is None:
+                return log_p
+            with torch.enable_grad():
+                probs = log_p.exp().detach().requires_grad_(True)
+                weight = guide_gradient(c.guide, probs, probs, xt.shape[0])
+            return torch.log_softmax(log_p + c.guide_scale * weight.masked_fill(~torch.isfinite(log_p), 0.0), -1)
+
+        constrain = None
+        if c.given is not None:
+            def constrain(x, t, generator, final):
+                return self.space.replace_given(x, c.given, t, generator, final=final)
+
+        return X0ProbabilityField(self.space, self.schedule, log_x0_fn, constrain)
 
     # ----- the bound ---------------------------------------------------------------------------
     def _integrand(self, xt, x0, t, log_p):
@@ -168,14 +197,15 @@ class DiscreteELBO(Objective):
         phi = torch.where(has_r, d * em1 + (d - em1), 1.0)
         return (q * phi).sum((-1, -2))
 
-    def _terms(self, net, x0, t, x_rec, generator):
+    def _terms(self, net, x0, t, x_rec, generator, labels=None, labels_rec=None):
         """Integral estimate (span · integrand) at times t, reconstruction at t_min for rows x_rec, CE."""
         sp, sch = self.space, self.schedule
         xt = sp.sample_forward(x0, t, generator)
         m = x_rec.shape[0]
         xr = sp.sample_forward(x_rec, sch.t_min, generator)
         tr = torch.full((m,), sch.t_min, dtype=torch.float64)
-        log_p_all = self.log_x0_probs(net, torch.cat([xt, xr]), torch.cat([t, tr]))
+        both = None if labels is None else torch.cat([labels, labels_rec])
+        log_p_all = self.log_x0_probs(net, torch.cat([xt, xr]), torch.cat([t, tr]), both)
         log_p, log_r = log_p_all[: x0.shape[0]], log_p_all[x0.shape[0]:]
         integral = (sch.t_max - sch.t_min) * self._integrand(xt, x0, t, log_p)
         recon = -torch.gather(log_r, 2, x_rec.unsqueeze(-1)).squeeze(-1).sum(-1)
@@ -190,12 +220,15 @@ class DiscreteELBO(Objective):
         u = u[torch.randperm(n, generator=generator)]
         return sch.t_min + (sch.t_max - sch.t_min) * u
 
-    def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
+    def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None,
+             labels: torch.Tensor | None = None) -> torch.Tensor:
         """Batch estimate of the ELBO in nats per token (plus ce_weight × cross-entropy per token)."""
+        labels = self.drop_labels(labels, generator)
         n, L = x0.shape
         t = self._stratified_times(n, generator)
         m = max(1, int(round(self.recon_fraction * n)))
-        integral, recon, ce = self._terms(net, x0, t, x0[:m], generator)
+        integral, recon, ce = self._terms(net, x0, t, x0[:m], generator, labels,
+                                          None if labels is None else labels[:m])
         prior = self.space.prior_kl(x0, self.schedule.t_max)
         value = (integral.mean() + prior.mean() + recon.mean()) / L
         if ce is not None:
@@ -203,7 +236,7 @@ class DiscreteELBO(Objective):
         return value
 
     def elbo(self, net: nn.Module, x: torch.Tensor, generator: torch.Generator | None = None,
-             n_time_samples: int = 32, batch_size: int = 1024) -> ELBOEstimate:
+             n_time_samples: int = 32, batch_size: int = 1024, labels: torch.Tensor | None = None) -> ELBOEstimate:
         """Estimate the upper bound on −log p_θ(x) (nats per sequence) with ``n_time_samples`` per sequence.
 
         Times are stratified per sequence; the reconstruction term uses ``n_time_samples`` draws
@@ -221,10 +254,11 @@ class DiscreteELBO(Objective):
                 xb = x[i:i + rows_per]
                 b = xb.shape[0]
                 rep = xb.repeat_interleave(M, dim=0)
+                lab = None if labels is None else labels[i:i + rows_per].repeat_interleave(M, dim=0)
                 u = (torch.arange(M, dtype=torch.float64).repeat(b)
                      + torch.rand(b * M, dtype=torch.float64, generator=generator)) / M
                 t = sch.t_min + (sch.t_max - sch.t_min) * u
-                integral, recon, _ = self._terms(net, rep, t, rep, generator)
+                integral, recon, _ = self._terms(net, rep, t, rep, generator, lab, lab)
                 per = (integral + recon).reshape(b, M)
                 nats.append(per.mean(1) + sp.prior_kl(xb, sch.t_max))
                 var.append(per.var(1) / M)
@@ -233,14 +267,14 @@ class DiscreteELBO(Objective):
                             bits_per_token_stderr=float(var.sum().sqrt()) / (n * L * LN2), n_time_samples=M)
 
     def log_prob(self, net: nn.Module, x, n_time_samples: int = 32, generator: torch.Generator | None = None,
-                 seed: int = 0, batch_size: int = 1024) -> dict:
+                 seed: int = 0, batch_size: int = 1024, labels: torch.Tensor | None = None) -> dict:
         """Lower bound on log p_θ(x) per sequence (nats, counting measure): minus the ELBO estimate.
 
         Returns ``{"log_prob": (n,), "stderr": (n,), "bits_per_token": float, "bound": True}``.
         """
         if generator is None:
             generator = torch.Generator().manual_seed(seed)
-        est = self.elbo(net, x, generator, n_time_samples=n_time_samples, batch_size=batch_size)
+        est = self.elbo(net, x, generator, n_time_samples=n_time_samples, batch_size=batch_size, labels=labels)
         return {"log_prob": -est.nats, "stderr": est.stderr, "bits_per_token": est.bits_per_token,
                 "bits_per_token_stderr": est.bits_per_token_stderr, "n_time_samples": est.n_time_samples,
                 "bound": True}

@@ -7,6 +7,7 @@ import math
 import torch
 from torch import nn
 
+from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gradient
 from heatwalk.core.fields import ScoreField
 from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.objectives.base import Objective
@@ -24,53 +25,123 @@ class ScoreMatching(Objective):
 
     where ||·||_g is the metric norm at x_t. The network output is the scaled
     score: s_θ(x, t) = P_x[f_θ(embed(x), φ(t))] / sqrt(t), with P_x the tangent
-    projection. The minimiser is the score of the time-t marginal.
+    projection. The minimiser is the score of the time-t marginal (given the
+    label, for a labelled model).
     """
 
     name = "score_matching"
     field_kind = "score"
     default_sampler = "geodesic_random_walk"
 
-    def __init__(self, space, schedule):
-        super().__init__(space, schedule)
+    def __init__(self, space, schedule, classes=None, label_dropout: float = 0.1, inpainting: bool = False):
+        super().__init__(space, schedule, classes, label_dropout, inpainting)
         self._out_dim = math.prod(space.ambient_shape)
 
     def default_network(self, hidden: int = 256, depth: int = 3, **extra) -> nn.Module:
         if extra:
             raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, hidden",
                              field="network")
-        return MLPDenoiser(self.space.embed_dim, self.schedule.n_features, self._out_dim, hidden, depth)
+        return MLPDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth)
 
-    def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
-        """sqrt(t) s_θ(x, t) as a float64 tangent vector at x."""
+    def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor, labels=None, known=None) -> torch.Tensor:
+        """sqrt(t) s_θ(x, t) as a float64 tangent vector at x (``known``: coordinate flags of inpainting models)."""
         feats = self.space.embed(x).float()
-        tf = self.schedule.features(t).float()
+        tf = self.condition_features(t, labels, known).float()
         raw = net(feats, tf).double().reshape(x.shape)
         return self.space.to_tangent(x, raw)
 
     def _time_column(self, t: torch.Tensor) -> torch.Tensor:
         return t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))
 
-    def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
+    def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None,
+             labels: torch.Tensor | None = None) -> torch.Tensor:
+        labels = self.drop_labels(labels, generator)
         t = self.schedule.sample(x0.shape[0], generator)
         xt = self.space.sample_forward(x0, t, generator)
+        known = None
+        if self.inpainting:
+            known = self.random_known(x0.shape[0], generator)
+            xt = torch.where(known, x0, xt)
         target = self._time_column(t) * self.space.score(xt, x0, t)
-        diff = self.scaled_score(net, xt, t) - target
+        diff = self.scaled_score(net, xt, t, labels, known) - target
+        if known is not None:
+            diff = torch.where(known, 0.0, diff)
         return self.space.inner(xt, diff, diff).mean() / self.space.dim
 
-    def log_prob(self, net: nn.Module, x, **options) -> dict:
+    def log_prob(self, net: nn.Module, x, labels: torch.Tensor | None = None, **options) -> dict:
         """Exact log-likelihood (nats, reference measure of the space) by the probability-flow ODE.
 
-        Returns the dict of :func:`heatwalk.samplers.flow_ode.log_likelihood`, with
-        ``bound = False`` (an ODE log-likelihood, not a bound).
+        Returns the dict of :func:`heatwalk.samplers.flow_ode.log_likelihood`, with ``bound = False``
+        (an ODE log-likelihood, not a bound). ``labels``: class indices, one per point (conditional
+        likelihood) or None (the unconditional model).
         """
+        cond = Conditioning(labels=labels)
         with torch.no_grad():
-            out = log_likelihood(self.field(net), x, **options)
+            out = log_likelihood(self.field(net, cond), x, **options)
         out["bound"] = False
         return out
 
-    def field(self, net: nn.Module) -> ScoreField:
-        def score_fn(x, t):
-            return self.scaled_score(net, x, t) / self._time_column(t)
+    def field(self, net: nn.Module, conditioning: Conditioning | None = None) -> ScoreField:
+        c = conditioning or Conditioning()
+        if c.given is not None and c.given_method == "reconstruction" and c.given.mask.dim() != 1:
+            raise InputError("reconstruction guidance needs coordinates; use given_method='replacement'",
+                             field="given_method")
 
-        return ScoreField(self.space, self.schedule, score_fn)
+        trained = c.given is not None and c.given_method == "trained"
+        if trained and not self.inpainting:
+            raise InputError("given_method 'trained' needs a model fitted with inpainting=True", field="given_method")
+        known = c.given.mask if trained else None
+
+        def network_score(x, t, labels):
+            s = self.scaled_score(net, x, t, labels, known) / self._time_column(t)
+            return s if known is None else torch.where(known, 0.0, s)
+
+        def guided(x, t):
+            uncond = network_score(x, t, None) if (c.labels is None or c.guidance != 1.0) else None
+            cond = network_score(x, t, c.labels) if (c.labels is not None and c.guidance != 0.0) else None
+            return combine_guidance(uncond, cond, c.guidance)
+
+        needs_grad = c.guide is not None or (c.given is not None and c.given_method == "reconstruction")
+
+        def score_fn(x, t):
+            if not needs_grad:
+                return guided(x, t)
+            with torch.enable_grad():
+                xr = x.detach().requires_grad_(True)
+                s = guided(xr, t)
+                extra = self._gradient_terms(xr, s, t, c)
+            return (s + self.space.to_tangent(xr, extra)).detach()
+
+        constrain = None
+        if c.given is not None:
+            def constrain(x, t, generator, final):
+                return self.space.replace_given(x, c.given, t, generator, final=final or trained)
+
+        return ScoreField(self.space, self.schedule, score_fn, constrain)
+
+    def _gradient_terms(self, x, s, t, c: Conditioning) -> torch.Tensor:
+        """User guide λ ∇ fn(x̂) plus reconstruction guidance for fixed coordinates (ambient vectors)."""
+        sp = self.space
+        x0_hat = sp.denoised_mean(x, s, t)
+        total = torch.zeros_like(x)
+        if c.given is not None and c.given_method == "reconstruction":
+            total = total + _reconstruction_gradient(sp, x, x0_hat, t, c.given)
+        if c.guide is not None:
+            total = total + c.guide_scale * guide_gradient(c.guide, x0_hat, x, x.shape[0])
+        return total
+
+
+def _reconstruction_gradient(space, x, x0_hat, t, part) -> torch.Tensor:
+    """J_K^T (c_t J_KK)^{-1} (a - x̂_K) with J = ∂x̂/∂x (see heatwalk.core.conditioning); vector coordinates."""
+    known = part.indices
+    residual = space.log(x0_hat, part.values)[:, known]                         # (n, k)
+    rows = [torch.autograd.grad(x0_hat[:, i].sum(), x, retain_graph=True)[0] for i in known]
+    jk = torch.stack(rows, dim=1)                                               # (n, k, d)
+    jkk = jk[:, :, known]
+    scale = space.denoised_scale(t).reshape(-1, 1, 1)
+    cov = scale * 0.5 * (jkk + jkk.transpose(-1, -2))
+    # the Tweedie covariance estimate is kept positive definite: eigenvalues at least 1% of c_t
+    evals, evecs = torch.linalg.eigh(cov)
+    evals = torch.maximum(evals, 0.01 * scale.reshape(-1, 1))
+    solved = evecs @ ((evecs.transpose(-1, -2) @ residual.unsqueeze(-1)) / evals.unsqueeze(-1))
+    return (jk.transpose(-1, -2) @ solved).squeeze(-1).detach()
