@@ -16,6 +16,7 @@ from heatwalk.samplers.ancestral import ancestral
 from heatwalk.samplers.geodesic_random_walk import geodesic_random_walk
 from heatwalk.samplers.predictor_corrector import predictor_corrector
 from heatwalk.samplers.probability_flow import probability_flow
+from heatwalk.samplers.product_walk import product_walk
 from heatwalk.samplers.tau_leaping import tau_leaping
 from heatwalk.samplers.unmasking import unmasking
 
@@ -39,7 +40,8 @@ SAMPLERS: dict[str, Sampler] = {
     "ancestral": Sampler(ancestral, ("x0_probabilities",)),
     "tau_leaping": Sampler(tau_leaping, ("x0_probabilities",)),
     "unmasking": Sampler(unmasking, ("x0_probabilities",), frozenset({"absorbing"})),
+    "product_walk": Sampler(product_walk, ("product",)),
 }
 
 __all__ = ["SAMPLERS", "Sampler", "geodesic_random_walk", "predictor_corrector", "probability_flow", "ancestral",
-           "tau_leaping", "unmasking"]
+           "tau_leaping", "unmasking", "product_walk"]

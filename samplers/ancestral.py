@@ -19,13 +19,18 @@ from heatwalk.kernels.ctmc import sample_categorical
 from heatwalk.samplers.reverse_loop import reverse_loop
 
 
+def ancestral_step(space, x: torch.Tensor, x0_probs: torch.Tensor, t, s, generator) -> torch.Tensor:
+    """Draw x_s ~ Σ_a p(x_0 = a | x_t) q(x_s | x_t, x_0 = a) at every position (s < t)."""
+    return sample_categorical(space.posterior(x, x0_probs, s, t), generator)
+
+
 def ancestral(field, n: int, steps: int = 100, generator: torch.Generator | None = None,
               progress: bool = True, x_init: torch.Tensor | None = None) -> torch.Tensor:
     """Draw n sequences (n, L) int64 with ``steps`` ancestral steps. ``x_init`` replaces the prior draw at t_max."""
     space = field.space
 
     def step(x, i, t, s):
-        return sample_categorical(space.posterior(x, field.x0_probs(x, t), s, t), generator)
+        return ancestral_step(space, x, field.x0_probs(x, t), t, s, generator)
 
     def finish(x, t_min):
         return sample_categorical(field.x0_probs(x, t_min), generator)

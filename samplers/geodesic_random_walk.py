@@ -18,15 +18,20 @@ import torch
 from heatwalk.samplers.reverse_loop import reverse_loop
 
 
-def reverse_step(field, x: torch.Tensor, t: torch.Tensor, t_next: torch.Tensor,
-                 generator: torch.Generator | None, noise: bool = True) -> torch.Tensor:
-    """One reverse geodesic random-walk step from time t to t_next < t (without noise if ``noise`` is False)."""
-    space = field.space
+def geodesic_step(space, x: torch.Tensor, score: torch.Tensor, t: torch.Tensor, t_next: torch.Tensor,
+                  generator: torch.Generator | None, noise: bool = True) -> torch.Tensor:
+    """exp_x(h (s - f) + sqrt(h) z), h = t - t_next, given the score s at (x, t) (no z if ``noise`` is False)."""
     h = t - t_next
-    v = h * (field.score(x, t) - space.drift(x, t))
+    v = h * (score - space.drift(x, t))
     if noise:
         v = v + h.sqrt() * space.random_tangent(x, generator)
     return space.exp(x, v)
+
+
+def reverse_step(field, x: torch.Tensor, t: torch.Tensor, t_next: torch.Tensor,
+                 generator: torch.Generator | None, noise: bool = True) -> torch.Tensor:
+    """One reverse geodesic random-walk step from time t to t_next < t (without noise if ``noise`` is False)."""
+    return geodesic_step(field.space, x, field.score(x, t), t, t_next, generator, noise)
 
 
 def geodesic_random_walk(field, n: int, steps: int = 500, generator: torch.Generator | None = None,

@@ -17,13 +17,14 @@ from heatwalk.spaces.so3 import SO3
 from heatwalk.spaces.simplex import Simplex
 from heatwalk.spaces.categories import Categories
 from heatwalk.spaces.euclidean import Euclidean
+from heatwalk.spaces.product import Product
 
 SPACE_KINDS: dict[str, type[Space]] = {
-    cls.kind: cls for cls in (Torus, Sphere, SO3, Simplex, Categories, Euclidean)
+    cls.kind: cls for cls in (Torus, Sphere, SO3, Simplex, Categories, Euclidean, Product)
 }
 
 __all__ = ["Space", "Manifold", "FiniteStateSpace", "IsotropicKernel", "Option", "Torus", "Sphere", "SO3",
-           "Simplex", "Categories", "Euclidean", "SPACE_KINDS", "from_config", "register"]
+           "Simplex", "Categories", "Euclidean", "Product", "SPACE_KINDS", "from_config", "register"]
 
 
 def register(cls: type[Space]) -> type[Space]:

@@ -225,6 +225,14 @@ class Space(ABC):
         return None
 
     # ----- points -------------------------------------------------------------------------------
+    def n_points(self, x) -> int:
+        """Number of points in a batch (its leading size)."""
+        return int(x.shape[0])
+
+    def take(self, x, index):
+        """The points ``x[index]`` of a batch (index: a slice or an index tensor)."""
+        return x[index]
+
     @abstractmethod
     def validate(self, x) -> torch.Tensor:
         """Return ``x`` as points of shape (n, *ambient_shape).

@@ -97,3 +97,34 @@ class X0ProbabilityField:
     def grid(self, steps: int) -> torch.Tensor:
         """steps + 1 times, uniform from t_max down to t_min."""
         return self.schedule.grid(steps, "linear")
+
+
+class ProductField:
+    """What the product sampler consumes: per-factor outputs of one network on the shared clock.
+
+    ``outputs(x, tau)`` returns, for every factor of the :class:`heatwalk.spaces.Product`, the score
+    (a manifold factor) or the log x_0 probabilities (a finite factor) at the factor's time t_i(τ).
+    The grid is uniform in the clock τ from 1 down to 0.
+    """
+
+    kind = "product"
+
+    def __init__(self, space, schedule, outputs_fn, constrain_fn=None):
+        self.space = space
+        self.schedule = schedule
+        self._outputs_fn = outputs_fn
+        self._constrain_fn = constrain_fn
+
+    def outputs(self, x, tau) -> list:
+        return self._outputs_fn(x, tau)
+
+    @property
+    def fixes_coordinates(self) -> bool:
+        return self._constrain_fn is not None
+
+    def constrain(self, x, t, generator=None, final: bool = False):
+        return x if self._constrain_fn is None else self._constrain_fn(x, t, generator, final)
+
+    def grid(self, steps: int) -> torch.Tensor:
+        """steps + 1 clock times from 1 down to 0."""
+        return self.schedule.grid(steps)

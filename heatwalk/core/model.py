@@ -110,8 +110,7 @@ class Model:
                              field="guide")
         part = None if given is None else self.space.given_part(given, n)
         if given_method is None:
-            given_method = ("trained" if self.objective.inpainting else "reconstruction") \
-                if part is not None and "coordinates" in self.space.capabilities else "replacement"
+            given_method = self.objective.default_given_method
         check_choice("given_method", given_method, GIVEN_METHODS)
         if given_method == "reconstruction" and part is not None and "coordinates" not in self.space.capabilities:
             raise InputError(f"given_method 'reconstruction' needs a space of coordinates (torus, R^d); "

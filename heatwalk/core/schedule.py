@@ -58,3 +58,39 @@ class TimeSchedule:
         k = torch.arange(1, self.n_frequencies + 1, dtype=u.dtype, device=u.device)
         ang = math.pi * u.unsqueeze(-1) * k
         return torch.cat([u.unsqueeze(-1), torch.sin(ang), torch.cos(ang)], dim=-1)
+
+
+class ClockSchedule:
+    """The diffusion clock τ ∈ [0, 1] of a product space: uniform training times, a linear sampling grid,
+    and features of τ (τ and sin/cos(π k τ), k = 1..n_frequencies). Each factor's own time is t_i(τ)
+    (:meth:`heatwalk.spaces.Product.factor_times`)."""
+
+    t_min = 0.0
+    t_max = 1.0
+
+    def __init__(self, n_frequencies: int = 8, kind: str = "clock"):
+        if kind != "clock":
+            raise InputError(f"clock schedule config has kind {kind!r}, expected 'clock'", field="schedule")
+        self.n_frequencies = check_positive_int("n_frequencies", n_frequencies)
+
+    def config(self) -> dict:
+        return {"kind": "clock", "n_frequencies": self.n_frequencies}
+
+    def sample(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
+        """n clock times, uniform on [0, 1] (float64)."""
+        return torch.rand(n, dtype=torch.float64, generator=generator)
+
+    def grid(self, steps: int, spacing: str = "linear") -> torch.Tensor:
+        """steps + 1 clock times from 1 down to 0 (the factors' own grids follow from t_i(τ))."""
+        check_positive_int("steps", steps)
+        check_choice("spacing", spacing, ("linear",))
+        return torch.linspace(1.0, 0.0, steps + 1, dtype=torch.float64)
+
+    @property
+    def n_features(self) -> int:
+        return 1 + 2 * self.n_frequencies
+
+    def features(self, tau: torch.Tensor) -> torch.Tensor:
+        k = torch.arange(1, self.n_frequencies + 1, dtype=tau.dtype, device=tau.device)
+        ang = math.pi * tau.unsqueeze(-1) * k
+        return torch.cat([tau.unsqueeze(-1), torch.sin(ang), torch.cos(ang)], dim=-1)

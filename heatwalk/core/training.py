@@ -73,12 +73,13 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     """
     _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads)
     x_data = space.validate(data)
-    if x_data.shape[0] < 2:
-        raise InputError(f"need at least 2 data points to fit, got {x_data.shape[0]}", field="data")
+    n_data = space.n_points(x_data)
+    if n_data < 2:
+        raise InputError(f"need at least 2 data points to fit, got {n_data}", field="data")
     if threads is not None:
         torch.set_num_threads(threads)
 
-    classes, label_idx = (None, None) if labels is None else encode_labels(labels, x_data.shape[0])
+    classes, label_idx = (None, None) if labels is None else encode_labels(labels, n_data)
     objective = make_objective(space, time_range=time_range, classes=classes, label_dropout=label_dropout,
                                inpainting=inpainting)
     run = _start(objective, network, lr, steps, seed)
@@ -86,7 +87,7 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
         "space": space.config(), "objective": objective.config(),
         "network": {"name": network_name(run.net), "config": run.net.config()},
         "steps": steps, "batch_size": batch_size, "lr": lr, "ema_decay": ema_decay, "seed": seed,
-        "n_data": int(x_data.shape[0]),
+        "n_data": n_data,
     }
     ckpt_path = Path(checkpoint_dir) / CHECKPOINT_NAME if checkpoint_dir is not None else None
     start = 0
@@ -142,17 +143,18 @@ def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, prog
     ``data`` is (points, class indices or None).
     """
     x_data, label_idx = data
+    space, n_data = objective.space, objective.space.n_points(data[0])
     losses: list[float] = []
     params = list(run.net.parameters())
     run.net.train()
     bar = tqdm(range(start, steps), desc="fitting", disable=not progress, initial=start, total=steps)
     running = None
     for step in bar:
-        idx = torch.randint(x_data.shape[0], (batch_size,), generator=run.gen)
+        idx = torch.randint(n_data, (batch_size,), generator=run.gen)
         if label_idx is None:
-            loss = objective.loss(run.net, x_data[idx], run.gen)
+            loss = objective.loss(run.net, space.take(x_data, idx), run.gen)
         else:
-            loss = objective.loss(run.net, x_data[idx], run.gen, labels=label_idx[idx])
+            loss = objective.loss(run.net, space.take(x_data, idx), run.gen, labels=label_idx[idx])
         run.opt.zero_grad(set_to_none=True)
         loss.backward()
         run.opt.step()

@@ -10,12 +10,13 @@ from __future__ import annotations
 from heatwalk.core.fields import ScoreField, X0ProbabilityField
 from heatwalk.core.objectives.base import Objective
 from heatwalk.core.objectives.discrete_elbo import DiscreteELBO
+from heatwalk.core.objectives.product import ProductObjective
 from heatwalk.core.objectives.score_matching import ScoreMatching
 from heatwalk.errors import InputError
 
-OBJECTIVES: dict[str, type[Objective]] = {cls.name: cls for cls in (ScoreMatching, DiscreteELBO)}
+OBJECTIVES: dict[str, type[Objective]] = {cls.name: cls for cls in (ScoreMatching, DiscreteELBO, ProductObjective)}
 
-__all__ = ["OBJECTIVES", "Objective", "ScoreMatching", "DiscreteELBO", "ScoreField", "X0ProbabilityField",
+__all__ = ["OBJECTIVES", "Objective", "ScoreMatching", "DiscreteELBO", "ProductObjective", "ScoreField", "X0ProbabilityField",
            "make_objective"]
 
 
@@ -23,8 +24,10 @@ def make_objective(space, config: dict | None = None, time_range: tuple[float, f
                    classes: list | None = None, label_dropout: float = 0.1, inpainting: bool = False) -> Objective:
     """Objective for ``space``: from a saved ``config`` or the space's defaults (with ``classes`` if labelled)."""
     if config is None:
-        t_min, t_max = time_range if time_range is not None else space.time_range
-        config = {"name": space.objective_name, "schedule": {"t_min": t_min, "t_max": t_max}}
+        name = space.objective_name
+        if name not in OBJECTIVES:
+            raise InputError(f"unknown objective {name!r}; known: {sorted(OBJECTIVES)}", field="objective")
+        config = {"name": name, "schedule": OBJECTIVES[name].schedule_config(space, time_range)}
         if classes is not None:
             config.update(classes=list(classes), label_dropout=label_dropout)
         if inpainting:

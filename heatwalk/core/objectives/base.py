@@ -60,6 +60,12 @@ class Objective(ABC):
         self.inpainting = bool(inpainting)
 
     @classmethod
+    def schedule_config(cls, space, time_range: tuple[float, float] | None) -> dict:
+        """The schedule config of a new objective: the space's time range unless one is given."""
+        t_min, t_max = time_range if time_range is not None else space.time_range
+        return {"t_min": t_min, "t_max": t_max}
+
+    @classmethod
     def from_config(cls, space, config: dict) -> "Objective":
         """Rebuild from :meth:`config` (``schedule`` holds the TimeSchedule's config)."""
         return cls(space, TimeSchedule(**config["schedule"]), **cls._label_config(config))
@@ -75,6 +81,13 @@ class Objective(ABC):
         if self.inpainting:
             out["inpainting"] = True
         return out
+
+    @property
+    def default_given_method(self) -> str:
+        """How ``given`` fixes coordinates by default (see :mod:`heatwalk.core.conditioning`)."""
+        if self.inpainting:
+            return "trained"
+        return "reconstruction" if "coordinates" in self.space.capabilities else "replacement"
 
     # ----- labels ------------------------------------------------------------------------------
     @property
