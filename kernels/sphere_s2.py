@@ -40,6 +40,8 @@ import math
 import numpy as np
 import torch
 
+from heatwalk.kernels.sphere_series import dlog_x_over_sin
+
 DTYPE = torch.float64
 PI = math.pi
 TWO_PI = 2.0 * math.pi
@@ -53,7 +55,7 @@ LEGENDRE_MIN_TIME = 0.15
 #: omitted Legendre terms (of p and dp/dθ) are below exp(-LEGENDRE_TAIL) times the constant term
 LEGENDRE_TAIL = 40.0
 #: (lower end of W, nodes) for the Laguerre rule, and (upper end of W, nodes) for the Chebyshev rule
-_LAGUERRE = ((4096.0, 2), (512.0, 3), (128.0, 4), (64.0, 6), (36.0, 9))
+_LAGUERRE = ((8192.0, 2), (2.0 ** 9.5, 3), (2.0 ** 7.5, 4), (64.0, 6), (36.0, 9))
 _CHEBYSHEV = ((2.0, 8), (4.0, 10), (8.0, 12), (12.0, 14), (20.0, 16), (32.0, 20), (36.0, 24))
 #: numbers (rows × nodes) per block of the vectorised quadratures; fits in cache
 _BLOCK = 1 << 15
@@ -129,6 +131,27 @@ _LAGUERRE_RULES = {n: _laguerre_rule(n) for _, n in _LAGUERRE}
 _CHEBYSHEV_RULES = {n: _chebyshev_rule(n) for _, n in _CHEBYSHEV}
 
 
+def _cot_difference(x1, y, sin_x1, sin_y, theta_psi):
+    """x₁ cot x₁ - y cot y for 0 < x₁ ≤ y < π, y² - x₁² = θψ.
+
+    With z cot z = 1 - z²/3 - z⁴/45 - 2z⁶/945 - z⁸/4725 - …, for y < 0.1 the difference is
+    θψ [1/3 + (a+b)/45 + 2(a²+ab+b²)/945 + (a+b)(a²+b²)/4725] (a = x₁², b = y², next term below
+    1e-12 relative), free of the cancellation of the direct form (absolute error ~ eps there).
+    """
+    small = y < 0.1
+    if bool(small.all()):
+        a, b = x1 * x1, y * y
+        return theta_psi * (1.0 / 3.0 + (a + b) * (1.0 / 45.0) + (a * a + a * b + b * b) * (2.0 / 945.0)
+                            + (a + b) * (a * a + b * b) * (1.0 / 4725.0))
+    direct = x1 * torch.cos(x1) / sin_x1 - y * torch.cos(y) / sin_y
+    if not bool(small.any()):
+        return direct
+    a, b = x1 * x1, y * y
+    series = theta_psi * (1.0 / 3.0 + (a + b) * (1.0 / 45.0) + (a * a + a * b + b * b) * (2.0 / 945.0)
+                          + (a + b) * (a * a + b * b) * (1.0 / 4725.0))
+    return torch.where(small, series, direct)
+
+
 def _laguerre(theta, t, n):
     """log p and d/dθ log p by the n-point Laguerre rule (far end dropped); 1-D tensors."""
     w, lam = (a.to(theta.device) for a in _LAGUERRE_RULES[n])
@@ -143,7 +166,7 @@ def _laguerre(theta, t, n):
     g = lam * torch.sqrt((x1 / sin_x1) * (y / sin_y))
     q = g.sum(-1)
     # d/dθ log G at fixed w: (x₁ cot x₁ - y cot y) / (2ψ)
-    dg = g * (x1 * torch.cos(x1) / sin_x1 - y * torch.cos(y) / sin_y) / (2.0 * psi)
+    dg = g * _cot_difference(x1, y, sin_x1, sin_y, th * psi) / (2.0 * psi)
     logp = t * 0.125 + LOG_MEHLER - torch.log(t) - theta * theta / (2.0 * t) + torch.log(q)
     return logp, dg.sum(-1) / q - theta / t
 
@@ -163,10 +186,10 @@ def _chebyshev(theta, t, n):
     terms = torch.exp(-w) * torch.sqrt((x1 / sin_x1) * (x2 / sin_x2) * sig1 * sig2)
     q = terms.sum(-1)
     # d/dθ at fixed c: ψ' = (θ - 2πc)/ψ, x₁' = (ψ' - 1)/2, x₂' = -(ψ' + 1)/2, w' = -2πc/t;
-    # d/dz log(z / sin z) = (1 - z cot z)/z
+    # d/dz log(z / sin z) = 1/z - cot z, by its Taylor series for small z (x₂ → 0 at the antipode)
     dpsi = (th - TWO_PI * c) / psi
-    e1 = (1.0 - x1 * torch.cos(x1) / sin_x1) / x1
-    e2 = (1.0 - x2 * torch.cos(x2) / sin_x2) / x2
+    e1 = dlog_x_over_sin(x1)
+    e2 = dlog_x_over_sin(x2)
     dlog = (TWO_PI * c / tt + 0.25 * (e1 * (dpsi - 1.0) - e2 * (1.0 + dpsi))
             + 0.5 * ((dpsi + 1.0) / sig1 + (dpsi - 1.0) / sig2))
     logp = (t * 0.125 + LOG_MEHLER - 1.5 * torch.log(t) - theta * theta / (2.0 * t)
@@ -202,8 +225,10 @@ def _run(code: int, theta, t):
 def s2_log_prob_and_score(theta: torch.Tensor, t: torch.Tensor):
     """log p_t(θ) (nats, w.r.t. area) and d/dθ log p_t(θ) on S^2 for 1-D float64 tensors θ ∈ [0, π], t > 0."""
     codes = plan(theta, t)
-    codes, order = torch.sort(codes)
-    values, counts = torch.unique_consecutive(codes, return_counts=True)
+    # sort by (code, quarter-octave of t): blocks of one code then hold similar times
+    key = codes * 4096 + (4 * torch.log2(t)).clamp_(-2000, 2000).long() + 2048
+    key, order = torch.sort(key)
+    values, counts = torch.unique_consecutive(torch.div(key, 4096, rounding_mode="floor"), return_counts=True)
     th_sorted, t_sorted = theta[order], t[order]
     logp = torch.empty_like(theta)
     score = torch.empty_like(theta)
