@@ -25,9 +25,12 @@ product with the powers ρ^{2j}.
 Errors. Truncation in j: the coefficients are computed to 2J and the largest ρ for which the
 omitted part of every v_k is below 1e-17 relative is recorded (``rho_max``); points beyond it are
 not evaluated. Truncation in t: the expansion is asymptotic, not convergent; its error is about the
-first omitted term. :func:`expansion_log_prob_and_score` reports |t^K v_K| / |Σ_k t^k v_k| (the
-last kept term, larger than the first omitted one wherever the terms decrease) and the caller
-accepts a point only where that estimate is below its tolerance and the last two terms decrease.
+first omitted term. Other geodesics: the expansion describes the minimising geodesic only; the one of
+length 2π - r adds about e^{-W} ((2π - r)/r)^α relative, W = 2π(π - r)/t (the leading term of the
+image sum for odd d). :func:`expansion_log_prob_and_score` reports |t^K v_K| / |Σ_k t^k v_k| (the
+last kept term, larger than the first omitted one wherever the terms decrease) plus that e^{-W}
+term, and the caller accepts a point only where this estimate is below its tolerance and the last
+two terms decrease.
 """
 
 from __future__ import annotations
@@ -46,7 +49,7 @@ PI = math.pi
 #: t-orders kept (v_0 … v_K)
 ORDERS = 12
 #: ρ-powers kept per v_k (ρ^0 … ρ^{2(J-1)})
-POWERS = 160
+POWERS = 320
 #: relative size of the omitted ρ-powers at ``rho_max``
 _POWER_TAIL = 1e-17
 #: rows per block of the matrix evaluation
@@ -113,7 +116,9 @@ def expansion_log_prob_and_score(r: torch.Tensor, t: torch.Tensor, d: int):
         rr, tt = r[idx], t[idx]
         s, ds, last, before = _sums(rr / PI, tt, b, db)
         good = (s > 0) & (last.abs() <= before.abs())
-        err[idx] = torch.where(good, last.abs() / s.abs(), torch.full_like(s, math.inf))
+        # the geodesic of length 2π - r, absent from the expansion, weighs e^{-W} ((2π - r)/r)^α relative
+        far = torch.exp(-2 * PI * (PI - rr) / tt + a * torch.log((2 * PI - rr) / rr.clamp_min(1e-300)))
+        err[idx] = torch.where(good, last.abs() / s.abs() + far, torch.full_like(s, math.inf))
         s = s.clamp_min(torch.finfo(DTYPE).tiny)
         logp[idx] = (-0.5 * d * torch.log(2 * PI * tt) - rr * rr / (2 * tt) + a * torch.log(x_over_sin(rr)) + torch.log(s))
         score[idx] = -rr / tt + a * dlog_x_over_sin(rr) + ds / (PI * s)
