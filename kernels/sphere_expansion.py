@@ -28,9 +28,9 @@ not evaluated. Truncation in t: the expansion is asymptotic, not convergent; its
 first omitted term. Other geodesics: the expansion describes the minimising geodesic only; the one of
 length 2π - r adds about e^{-W} ((2π - r)/r)^α relative, W = 2π(π - r)/t (the leading term of the
 image sum for odd d). :func:`expansion_log_prob_and_score` reports |t^K v_K| / |Σ_k t^k v_k| (the
-last kept term, larger than the first omitted one wherever the terms decrease) plus that e^{-W}
-term, and the caller accepts a point only where this estimate is below its tolerance and the last
-two terms decrease.
+last kept term, larger than the first omitted one wherever the terms decrease; the sum of the last
+two where they do not) plus that e^{-W} term, and the caller accepts a point only where this estimate
+is below its tolerance.
 """
 
 from __future__ import annotations
@@ -99,8 +99,8 @@ def _sums(rho: torch.Tensor, t: torch.Tensor, b: torch.Tensor, db: torch.Tensor)
 def expansion_log_prob_and_score(r: torch.Tensor, t: torch.Tensor, d: int):
     """log p, d/dr log p by the expansion, and its estimated relative error, for 1-D r ≤ π ρ_max, t > 0.
 
-    The estimate is |t^K v_K| / |Σ| where the last two terms decrease in size, else +inf; it is also
-    +inf where the sum is not positive. Points with r > π ρ_max get +inf and NaN values.
+    The estimate is described in the module docstring; it is +inf where the sum is not positive.
+    Points with r > π ρ_max get +inf and NaN values.
     """
     kept, rho_max = coefficients(d)
     b = torch.tensor(kept, dtype=DTYPE, device=r.device)
@@ -115,10 +115,11 @@ def expansion_log_prob_and_score(r: torch.Tensor, t: torch.Tensor, d: int):
         idx = inside[i:i + _ROWS]
         rr, tt = r[idx], t[idx]
         s, ds, last, before = _sums(rr / PI, tt, b, db)
-        good = (s > 0) & (last.abs() <= before.abs())
+        # last kept term; where the terms grow again (or the one before crosses zero) both last terms
+        tail = torch.where(last.abs() <= before.abs(), last.abs(), last.abs() + before.abs())
         # the geodesic of length 2π - r, absent from the expansion, weighs e^{-W} ((2π - r)/r)^α relative
         far = torch.exp(-2 * PI * (PI - rr) / tt + a * torch.log((2 * PI - rr) / rr.clamp_min(1e-300)))
-        err[idx] = torch.where(good, last.abs() / s.abs() + far, torch.full_like(s, math.inf))
+        err[idx] = torch.where(s > 0, tail / s.abs() + far, torch.full_like(s, math.inf))
         s = s.clamp_min(torch.finfo(DTYPE).tiny)
         logp[idx] = (-0.5 * d * torch.log(2 * PI * tt) - rr * rr / (2 * tt) + a * torch.log(x_over_sin(rr)) + torch.log(s))
         score[idx] = -rr / tt + a * dlog_x_over_sin(rr) + ds / (PI * s)

@@ -223,7 +223,9 @@ def _run(code: int, theta, t):
 
 
 def s2_log_prob_and_score(theta: torch.Tensor, t: torch.Tensor):
-    """log p_t(θ) (nats, w.r.t. area) and d/dθ log p_t(θ) on S^2 for 1-D float64 tensors θ ∈ [0, π], t > 0."""
+    """log p_t(θ) (nats, w.r.t. area) and d/dθ log p_t(θ) on S^2 for 1-D float64 tensors θ, t > 0
+    (θ is clamped to [0, π])."""
+    theta = theta.clamp(0.0, PI)
     codes = plan(theta, t)
     # sort by (code, quarter-octave of t): blocks of one code then hold similar times
     key = codes * 4096 + (4 * torch.log2(t)).clamp_(-2000, 2000).long() + 2048

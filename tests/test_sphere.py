@@ -434,3 +434,15 @@ def test_validation_errors():
         Sphere(0)
     with pytest.raises(InputError, match="time must be finite and > 0"):
         s2.log_kernel(s2.random_uniform(2), s2.random_uniform(2), torch.tensor([0.1, -1.0]))
+
+
+@pytest.mark.parametrize("d", [2, 4])
+def test_sampler_many_times_outside_the_table(d):
+    # > 64 distinct times below the cached table's range (1e-6): one table per time, no recursion. At t ~ 1e-9
+    # the law of r is that of |N(0, t I_d)| up to O(t): E[r²] = d t. 4000 draws: standard error of the mean of
+    # r²/(d t) is sqrt(2 / (d n)); tolerance 5 standard errors (failure rate ~6e-7).
+    g = torch.Generator().manual_seed(11)
+    t = 1e-9 * (1 + 1e-3 * torch.rand(4000, dtype=F64, generator=g))
+    r = sample_sphere_radius(t, d, g)
+    ratio = float((r * r / (d * t)).mean())
+    assert abs(ratio - 1) < 5 * math.sqrt(2 / (d * 4000)), ratio
