@@ -287,6 +287,20 @@ def _invert(cdf, f, df, u):
     return (j.to(DTYPE) + x) * h
 
 
+def _sample_per_time(t: torch.Tensor, u: torch.Tensor, d: int, chunk: int = 8192) -> torch.Tensor:
+    """Inverse-CDF draws with a table per distinct time, EXACT_MAX_TIMES tables at a time (1-D t, u)."""
+    out = torch.empty_like(t)
+    t_unique, inv = torch.unique(t, return_inverse=True)
+    for j in range(0, t_unique.numel(), EXACT_MAX_TIMES):
+        big_r, cdf, f, df = _radial_tables(t_unique[j:j + EXACT_MAX_TIMES], d)
+        k = ((inv >= j) & (inv < j + EXACT_MAX_TIMES)).nonzero().squeeze(-1)
+        row = inv[k] - j
+        for i in range(0, k.numel(), chunk):
+            kk, rr = k[i:i + chunk], row[i:i + chunk]
+            out[kk] = big_r[rr] * _invert(cdf[rr], f[rr], df[rr], u[kk])
+    return out
+
+
 def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) -> torch.Tensor:
     """Draws of the geodesic distance r = d(x_0, x_t) on S^d, one per entry of ``t``.
 
@@ -323,15 +337,8 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
         return out.clamp(0.0, PI).reshape(shape)
     inside = (t >= TABLE_T_MIN) & (t <= TABLE_T_MAX)
     outside = (~inside).nonzero().squeeze(-1)
-    if outside.numel():  # a table per distinct time, EXACT_MAX_TIMES tables at a time
-        t_out, inv_out = torch.unique(t[outside], return_inverse=True)
-        for j in range(0, t_out.numel(), EXACT_MAX_TIMES):
-            big_r, cdf, f, df = _radial_tables(t_out[j:j + EXACT_MAX_TIMES], d)
-            sel = (inv_out >= j) & (inv_out < j + EXACT_MAX_TIMES)
-            k, row = outside[sel], inv_out[sel] - j
-            for i in range(0, k.numel(), chunk):
-                kk, rr = k[i:i + chunk], row[i:i + chunk]
-                out[kk] = big_r[rr] * _invert(cdf[rr], f[rr], df[rr], u[kk])
+    if outside.numel():
+        out[outside] = _sample_per_time(t[outside], u[outside], d)
     lo, cdf, f, df = _log_time_table(d)
     m = cdf.shape[0]
     idx = inside.nonzero().squeeze(-1)
