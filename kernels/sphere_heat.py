@@ -10,117 +10,81 @@ r ∈ [0, π] from the start point:
 with C_l^α the Gegenbauer polynomials (C^{1/2} = Legendre P_l for d = 2) and
 |S^d| = 2 π^{(d+1)/2} / Γ((d+1)/2). Every function here returns log p_t(r) in
 nats and its radial derivative d/dr log p_t(r) (the score is that number times
-the unit vector pointing away from the start point).
+the unit vector pointing away from the start point). Errors below are relative
+to max(1, |value|), measured against 50-digit mpmath (tests/test_sphere.py,
+benchmarks/kernel_cost.py).
 
-Representations used (all exact; truncations are below exp(-40) relative)
--------------------------------------------------------------------------
+Representations and where each is used
+--------------------------------------
 d = 1
     The wrapped normal of :mod:`heatwalk.kernels.wrapped_normal`.
-d = 2, t ≤ ``SMALL_TIME[2]``
-    The Mehler–Dirichlet integral for P_l turns the series into an integral
-    over theta-function images; folded onto one period it reads
-
-        p_t(θ) = e^{t/8} / (2 π^{3/2} t^{3/2}) ∫_θ^{2π-θ} ψ e^{-ψ²/(2t)} / sqrt(cos θ - cos ψ) dψ,
-
-    up to images of relative size exp(-2π²/t) < exp(-43). With
-    w = (ψ² - θ²)/(2t) the integrand becomes e^{-w} times a function analytic
-    on [0, W], W = 2π(π-θ)/t, divided by sqrt(w) at w = 0 and by
-    sqrt(W - w) at w = W. Far from the antipode (W ≥ 90) we integrate
-    w = u² ∈ [0, 45] by Gauss–Legendre in u; near it (W < 90) the whole range
-    by Gauss–Chebyshev in w. Both rules converge geometrically, uniformly in θ,
-    and never subtract large numbers; the radial derivative is the exact
-    derivative of the same quadrature sum.
-d = 3, t ≤ ``SMALL_TIME[3]``
-    The closed image sum p_t(r) = e^{t/2} (2πt)^{-3/2} Σ_k (r+2πk)/sin r ·
-    e^{-(r+2πk)²/(2t)}, with the images paired so that the removable 0/0 at
-    r = 0 and r = π is cancelled analytically.
-otherwise
-    The eigen-series above, truncated from t, evaluated with the Gegenbauer
-    three-term recurrence. For d = 2, 3 it is only used for t > ``SMALL_TIME``,
-    where its rounding error is below 1e-10 relative everywhere.
-d ≥ 4, small t
-    Only the eigen-series is implemented. It is accurate where the density is
-    not much smaller than its maximum (r ≲ 5 sqrt(t)); elsewhere the
-    cancellation between terms would make the result meaningless, and the
-    functions raise :class:`heatwalk.InputError` (they never return an
-    inaccurate value silently). The radial sampler only needs absolute accuracy
-    and works for every d and t.
-
-Accuracy (tested in tests/test_sphere.py against mpmath): for d = 1, 2, 3,
-t ∈ [1e-5, 50] and r ∈ [0, π], log p within 1e-9 and d/dr log p within 1e-7,
-relative to max(1, |value|).
+d = 2 (:mod:`heatwalk.kernels.sphere_s2`), planned per point, W = 2π(π - r)/t:
+    * Legendre series for t ≥ 0.6, and for t ≥ 0.15 where r² ≤ 10 t; the first L(t) ≤ 25 terms,
+      omitted terms below e^{-40}. Its rounding error grows like eps · p(0)/p(r) ≲ eps e^{r²/2t}; the
+      two conditions keep that factor below e^{8.3} (t ≥ 0.6) and e^5. Worst measured error:
+      log p 2.6e-15, score 2.9e-14 (at t = 0.6, r → π).
+    * Otherwise the folded Mehler–Dirichlet integral, written as ∫_0^W e^{-w} w^{-1/2} G(w) dw:
+      - W ≥ 38 (Laguerre): the far end (relative size ~e^{-W}) is dropped and the n-point generalized
+        Gauss–Laguerre rule (α = -1/2) used, n = 2, 3, 4, 6, 9 for W ≥ 8192, 724, 181, 64, 38. The
+        rule reproduces the small-time (Minakshisundaram–Pleijel) expansion through t^{2n-1}; its
+        error is of the size of the next term, ~n! Γ(n+1/2)/W^{2n}: about 1e-15 at those W.
+        Worst measured: log p 1.7e-15, score 5.5e-15.
+      - W < 38 (Chebyshev, next to the antipode): n-point Gauss–Chebyshev over [0, W] with both end
+        singularities in the weight, n = 8, 10, 12, 14, 16, 20, 24 for W < 2, 4, 8, 12, 20, 32, 38
+        (geometric convergence). Worst measured: log p 2e-16, score 8e-15, except that the score
+        -r/t + (derivative of the integral) loses about eps · π/t absolutely to cancellation: 4e-11
+        at t = 1e-5, r = π - 1e-9, where the score is ~1 and the density ~e^{-5e5}.
+    The cost per point is a plan (two table look-ups), one sort by plan, and 2–9 quadrature nodes or
+    ≤ 25 series terms; on the training mix of times (log-uniform in [1e-4, 11.5]) about half the
+    points need 2–3 nodes. log p + score on S^2 cost ≈ 4–5x Normal.log_prob on the same batch
+    (benchmarks/kernel_cost.py; it was ≈ 20–33x with 32 nodes everywhere).
+d = 3, t ≤ 0.45
+    The closed image sum p_t(r) = e^{t/2} (2πt)^{-3/2} Σ_k (r+2πk)/sin r · e^{-(r+2πk)²/(2t)}, with
+    the images paired so that the removable 0/0 at r = 0 and r = π is cancelled analytically
+    (:mod:`heatwalk.kernels.sphere_series`); the eigen-series for t > 0.45.
+d ≥ 4
+    * The small-time expansion of :mod:`heatwalk.kernels.sphere_expansion` (12 orders in t, r ≤ 0.9π),
+      for t ≤ 1 wherever its error estimate (last kept term + weight e^{-W} of the other geodesic) is
+      at most ``EXPANSION_TOLERANCE`` = 1e-14. Measured for d = 4, 5, 6, 10: log p 1.7e-15, score 2e-14.
+      Its cost does not depend on t (t = 1e-12 costs what t = 1e-2 costs).
+    * Elsewhere the eigen-series, with at most ``SERIES_MAX_TERMS`` = 1000 terms (t ≳ 2e-4 for d = 4)
+      and only where its rounding-error bound is ≤ 1e-10. Measured: log p 1e-13, score 1.4e-12.
+    * Where neither applies — r close to π at small t (for d = 4: r ≥ 2.84 for t ≤ 0.03, r ≥ 2.1 at
+      t = 0.1, none for t ≥ 0.4), where the density is below e^{-12} of its peak — the kernel raises
+      :class:`heatwalk.InputError` naming d, t and r; it never returns an inaccurate value silently.
+      The radial sampler only needs absolute accuracy and evaluates no such point.
 """
 
 from __future__ import annotations
 
 import math
 
-import numpy as np
 import torch
 
 from heatwalk.errors import InputError
+from heatwalk.kernels.sphere_expansion import expansion_log_prob_and_score
+from heatwalk.kernels.sphere_s2 import s2_log_prob_and_score
+from heatwalk.kernels.sphere_series import (SERIES_MAX_TERMS, gegenbauer_series, log_sphere_area, s3_small,
+                                            series_terms)
 from heatwalk.kernels.wrapped_normal import wrap_angle, wrapped_normal_log_prob_and_score
+
+__all__ = ["log_sphere_area", "sample_sphere_radius", "sphere_heat_log_prob_and_score"]
 
 DTYPE = torch.float64
 PI = math.pi
-TWO_PI = 2.0 * math.pi
-#: π - float(π): distances to the antipode are computed as (PI - r) + PI_LO, exact for float r
-PI_LO = 1.2246467991473532e-16
-EPS = float(torch.finfo(DTYPE).eps)
 
-#: below this time d = 2 and d = 3 use their small-time representation, above it the eigen-series
-SMALL_TIME = {2: 0.45, 3: 0.45}
-#: omitted series terms are below exp(-TAIL_EXPONENT) times the leading term
-TAIL_EXPONENT = 46.0
-#: the eigen-series is accepted where its estimated rounding error is below this (relative)
-SERIES_MAX_RELATIVE_ERROR = 1e-10
-
-# ---- S^2 quadrature rules -----------------------------------------------------------------------
-#: u-range of the Gauss–Legendre rule: e^{-u²} is below e^{-45} beyond
-_S2_U_MAX = math.sqrt(45.0)
-#: W = 2π(π-θ)/t above which the far end point is ignored (its weight is below e^{-90})
-_S2_FAR = 90.0
-_S2_N_NODES = 32  # 24 already gives 1e-11; 32 reaches rounding level (checked against 96)
-_gl_x, _gl_w = np.polynomial.legendre.leggauss(_S2_N_NODES)
-_S2_GL_U = torch.tensor(0.5 * _S2_U_MAX * (_gl_x + 1.0), dtype=DTYPE)
-_S2_GL_W = torch.tensor(0.5 * _S2_U_MAX * _gl_w, dtype=DTYPE)
-_cheb = np.cos((2.0 * np.arange(1, _S2_N_NODES + 1) - 1.0) * math.pi / (2.0 * _S2_N_NODES))
-# Chebyshev nodes of [0, 1] and their distances to 1, each computed without cancellation
-_S2_CH_C = torch.tensor(np.sin(0.25 * math.pi * (2.0 * np.arange(1, _S2_N_NODES + 1) - 1.0) / _S2_N_NODES) ** 2,
-                        dtype=DTYPE)
-_S2_CH_CBAR = torch.tensor(np.cos(0.25 * math.pi * (2.0 * np.arange(1, _S2_N_NODES + 1) - 1.0) / _S2_N_NODES) ** 2,
-                           dtype=DTYPE)
-
-# ---- radial sampler -----------------------------------------------------------------------------
-#: grid intervals per distinct time for the inverse CDF
-RADIAL_GRID = 256
-#: rows per block in the S^2 / S^3 small-time evaluation
+#: below this time S^3 uses its image sum, above it the eigen-series
+S3_SMALL_TIME = 0.45
+#: S^d, d ≥ 4: the small-time expansion is tried for t ≤ EXPANSION_MAX_TIME and accepted where its
+#: estimated relative error is at most EXPANSION_TOLERANCE
+EXPANSION_MAX_TIME = 1.0
+EXPANSION_TOLERANCE = 1e-14
+#: rows per block in the S^3 small-time evaluation
 _KERNEL_CHUNK = 8192
+#: grid intervals per distinct time for the inverse CDF of the radial sampler
+RADIAL_GRID = 256
 #: max number of (time, grid point) kernel evaluations done at once by the sampler
 _SAMPLER_CHUNK = 1 << 16
-
-
-def log_sphere_area(d: int) -> float:
-    """log |S^d| = log(2 π^{(d+1)/2} / Γ((d+1)/2)), the total Riemannian volume of the unit d-sphere."""
-    return math.log(2.0) + 0.5 * (d + 1) * math.log(math.pi) - math.lgamma(0.5 * (d + 1))
-
-
-# ---- small helpers (stable at the removable singularities) --------------------------------------
-def _x_over_sin(z: torch.Tensor) -> torch.Tensor:
-    """z / sin z for z ∈ [0, π)."""
-    small = z.abs() < 1e-3
-    zs = torch.where(small, torch.ones_like(z), z)
-    z2 = z * z
-    return torch.where(small, 1.0 + z2 / 6.0 + 7.0 * z2 * z2 / 360.0, zs / torch.sin(zs))
-
-
-def _dlog_x_over_sin(z: torch.Tensor) -> torch.Tensor:
-    """d/dz log(z / sin z) = 1/z - cot z for z ∈ [0, π)."""
-    small = z.abs() < 0.1
-    zs = torch.where(small, torch.ones_like(z), z)
-    z2 = z * z
-    series = z * (1.0 / 3.0 + z2 * (1.0 / 45.0 + z2 * (2.0 / 945.0 + z2 * (1.0 / 4725.0 + z2 * 2.0 / 93555.0))))
-    return torch.where(small, series, 1.0 / zs - torch.cos(zs) / torch.sin(zs))
 
 
 def _check_args(r: torch.Tensor, t: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
@@ -136,153 +100,53 @@ def _check_args(r: torch.Tensor, t: torch.Tensor) -> tuple[torch.Tensor, torch.T
     return r.clamp(0.0, PI), t
 
 
-# ---- eigen-series -------------------------------------------------------------------------------
-def series_terms(t_min: float, d: int) -> int:
-    """Number of eigen-terms after which every omitted term (of p and of dp/dr, at any r) is below
-    exp(-TAIL_EXPONENT) times the constant mode, for all t ≥ ``t_min``.
-
-    Bound used: |C_l^α(cos r)| ≤ C_l^α(1) = binom(l+2α-1, l), |d/dr C_l^α| ≤ l(l+2α) C_l^α(1).
-    """
-    a = 0.5 * (d - 1)
-    l_max = int(math.sqrt(4.0 * TAIL_EXPONENT / t_min + (2 * a) ** 2)) + 20 * d + 50
-    l = np.arange(1, l_max + 1, dtype=np.float64)
-    from scipy.special import gammaln
-    log_b = (np.log((l + a) / a) + gammaln(l + 2 * a) - gammaln(l + 1) - gammaln(2 * a)
-             + np.log1p(l * (l + 2 * a)) - l * (l + 2 * a) * t_min / 2)
-    above = np.nonzero(log_b > -TAIL_EXPONENT)[0]
-    return int(above[-1] + 2) if above.size else 1
-
-
-def _series(r: torch.Tensor, t: torch.Tensor, d: int, check: bool):
-    """Eigen-series on 1-D tensors: log p, d/dr log p, and a bound on the relative rounding error."""
-    a = 0.5 * (d - 1)
-    n_terms = series_terms(float(t.min()), d)
-    x = torch.cos(r)
-    sin_r = torch.sin(r)
-    # C_l^α (value) and C_{l-1}^{α+1} (for the derivative: d/dx C_l^α = 2α C_{l-1}^{α+1})
-    c_prev, c_cur = torch.ones_like(x), 2 * a * x
-    g_prev, g_cur = torch.zeros_like(x), torch.ones_like(x)
-    s = torch.zeros_like(x)
-    ds = torch.zeros_like(x)
-    s_abs = torch.ones_like(x)
-    for l in range(1, n_terms + 1):
-        w = (l + a) / a * torch.exp(-0.5 * l * (l + 2 * a) * t)
-        s = s + w * c_cur
-        ds = ds - w * (2 * a) * sin_r * g_cur
-        s_abs = s_abs + w * c_cur.abs()
-        # advance both recurrences: C_{n} = (2x(n+λ-1) C_{n-1} - (n+2λ-2) C_{n-2}) / n
-        n = l + 1
-        c_prev, c_cur = c_cur, (2 * x * (n + a - 1) * c_cur - (n + 2 * a - 2) * c_prev) / n
-        m = l  # g_cur holds C_{l-1}^{α+1}; next is C_l^{α+1}
-        g_prev, g_cur = g_cur, (2 * x * (m + a) * g_cur - (m + 2 * a) * g_prev) / m
-    total = 1.0 + s
-    rel_err = (4.0 * math.sqrt(n_terms) + 8.0) * EPS * s_abs / total.abs()
-    if check:
-        bad = ~(total > 0) | (rel_err > SERIES_MAX_RELATIVE_ERROR)
-        if bool(bad.any()):
-            i = int(bad.nonzero()[0, 0])
-            raise InputError(
-                f"heat kernel on S^{d}: at t = {float(t[i]):.6g}, r = {float(r[i]):.6g} the eigen-series cannot "
-                f"reach 1e-10 relative accuracy (the density is about e^{-float(r[i]) ** 2 / (2 * float(t[i])):.4g} "
-                "of its peak); a small-time representation exists only for d <= 3", row=i)
-    total = total.clamp_min(torch.finfo(DTYPE).tiny)
-    return torch.log(total) - log_sphere_area(d), ds / total
-
-
-# ---- d = 2, small time --------------------------------------------------------------------------
-def _s2_small(theta: torch.Tensor, t: torch.Tensor):
-    """S^2 kernel by the folded Mehler–Dirichlet integral (t ≤ SMALL_TIME[2]); 1-D tensors."""
-    logp = torch.empty_like(theta)
-    dlogp = torch.empty_like(theta)
-    far_w = TWO_PI * ((PI - theta) + PI_LO) / t
-    near = far_w < _S2_FAR
-    log_c = -math.log(2.0) - 1.5 * math.log(PI)
-    if bool((~near).any()):
-        th, tt = theta[~near, None], t[~near, None]
-        u = _S2_GL_U.to(theta.device)
-        psi = torch.sqrt(th * th + 2 * tt * u * u)
-        x1 = tt * u * u / (psi + th)  # (ψ - θ)/2 without cancellation
-        y = 0.5 * (psi + th)
-        g = torch.sqrt(_x_over_sin(y) * _x_over_sin(x1))
-        terms = _S2_GL_W.to(theta.device) * torch.exp(-u * u) * g
-        q = terms.sum(-1)
-        dlogg = 0.5 * (_dlog_x_over_sin(y) * 0.5 * (th / psi + 1.0) - _dlog_x_over_sin(x1) * x1 / psi)
-        t1, th1 = t[~near], theta[~near]
-        logp[~near] = t1 / 8 + log_c + math.log(2.0) - torch.log(t1) - th1 * th1 / (2 * t1) + torch.log(q)
-        dlogp[~near] = -th1 / t1 + (terms * dlogg).sum(-1) / q
-    if bool(near.any()):
-        th, tt, ww = theta[near, None], t[near, None], far_w[near, None]
-        c = _S2_CH_C.to(theta.device)
-        cbar = _S2_CH_CBAR.to(theta.device)
-        w, wbar = ww * c, ww * cbar
-        psi = torch.sqrt(th * th + 2 * tt * w)
-        x1 = tt * w / (psi + th)  # (ψ - θ)/2
-        x2 = tt * wbar / (TWO_PI - th + psi)  # (2π - θ - ψ)/2
-        h = torch.sqrt(_x_over_sin(x1) * _x_over_sin(x2) * (psi + th) * (TWO_PI - th + psi)) / (math.sqrt(2.0) * tt)
-        terms = torch.exp(-w) * h
-        q = terms.sum(-1) * (PI / _S2_N_NODES)
-        dpsi = (th - TWO_PI * c) / psi
-        dlogh = 0.5 * (_dlog_x_over_sin(x1) * 0.5 * (dpsi - 1.0) - _dlog_x_over_sin(x2) * 0.5 * (1.0 + dpsi)
-                       + (dpsi + 1.0) / (psi + th) + (dpsi - 1.0) / (TWO_PI - th + psi))
-        t1, th1 = t[near], theta[near]
-        logp[near] = t1 / 8 + log_c - 0.5 * torch.log(t1) - th1 * th1 / (2 * t1) + torch.log(q)
-        dlogp[near] = -th1 / t1 + (terms * (TWO_PI * c / tt + dlogh)).sum(-1) / terms.sum(-1)
+def _s3(r: torch.Tensor, t: torch.Tensor, check: bool):
+    logp = torch.empty_like(r)
+    dlogp = torch.empty_like(r)
+    small = t <= S3_SMALL_TIME
+    if bool(small.any()):
+        idx = small.nonzero().squeeze(-1)
+        for i in range(0, idx.numel(), _KERNEL_CHUNK):  # bounded (rows x images) temporaries
+            sl = idx[i:i + _KERNEL_CHUNK]
+            logp[sl], dlogp[sl] = s3_small(r[sl], t[sl])
+    if bool((~small).any()):
+        lp, sc = gegenbauer_series(r[~small], t[~small], 3, check)
+        logp[~small], dlogp[~small] = lp, sc
     return logp, dlogp
 
 
-# ---- d = 3, small time --------------------------------------------------------------------------
-def _s3_small(r: torch.Tensor, t: torch.Tensor):
-    """S^3 kernel by the paired image sum (t ≤ SMALL_TIME[3]); 1-D tensors."""
-    logf = torch.empty_like(r)
-    dlogf = torch.empty_like(r)
-    low = r <= 0.5 * PI
-    if bool(low.any()):
-        # Σ_k (r+2πk) e^{-(r+2πk)²/2t} / sin r = (r/sin r) e^{-r²/2t} (1 + Σ_{k≥1} Q_k), pairing ±k
-        rr, tt = r[low], t[low]
-        q = torch.zeros_like(rr)
-        dq = torch.zeros_like(rr)
-        for k in (1, 2, 3):
-            a = 2 * PI * PI * k * k / tt
-            b = 8 * PI * PI * k * k / tt
-            z = 2 * PI * k * rr / tt
-            small = z < 1e-2
-            zs = torch.where(small, torch.ones_like(z), z)
-            ep, em = torch.exp(zs - a), torch.exp(-zs - a)
-            cosh_a = torch.where(small, torch.exp(-a) * (1 + z * z / 2), 0.5 * (ep + em))  # e^{-a} cosh z
-            sinh_a = 0.5 * (ep - em)
-            sinhc_a = torch.where(small, torch.exp(-a) * (1 + z * z / 6), sinh_a / zs)  # e^{-a} sinh(z)/z
-            sinhc_d = torch.where(small, torch.exp(-a) * (z / 3 + z ** 3 / 30),
-                                  (cosh_a - sinhc_a) / zs)  # e^{-a} d/dz (sinh z / z)
-            sinh_a = torch.where(small, torch.exp(-a) * z, sinh_a)
-            q = q + 2 * cosh_a - b * sinhc_a
-            dq = dq + (2 * PI * k / tt) * (2 * sinh_a - b * sinhc_d)
-        logf[low] = torch.log(_x_over_sin(rr)) - rr * rr / (2 * tt) + torch.log1p(q)
-        dlogf[low] = _dlog_x_over_sin(rr) - rr / tt + dq / (1 + q)
-    if bool((~low).any()):
-        # with ε = π - r, pair r + 2πk with r - 2π(k+1): a_j = (2j+1)π,
-        # [(a-ε) e^{-(a-ε)²/2t} - (a+ε) e^{-(a+ε)²/2t}] / sin ε
-        #   = e^{-(a-ε)²/2t} (ε/sin ε) [(2a²/t) φ(x) - 1 - e^{-x}],  x = 2aε/t, φ(x) = (1 - e^{-x})/x
-        eps_, tt = (PI - r[~low]) + PI_LO, t[~low]
-        logs, dlogs = [], []
-        for j in (0, 1, 2):
-            a = (2 * j + 1) * PI
-            x = 2 * a * eps_ / tt
-            small = x < 1e-2
-            xs = torch.where(small, torch.ones_like(x), x)
-            phi = torch.where(small, 1 - x / 2 + x * x / 6 - x ** 3 / 24 + x ** 4 / 120,
-                              -torch.expm1(-xs) / xs)
-            dphi = torch.where(small, -0.5 + x / 3 - x * x / 8 + x ** 3 / 30 - x ** 4 / 144,
-                               (torch.exp(-xs) * (1 + xs) - 1) / (xs * xs))
-            bj = (2 * a * a / tt) * phi - 1 - torch.exp(-x)
-            dbj = ((2 * a * a / tt) * dphi + torch.exp(-x)) * (2 * a / tt)  # d/dε
-            logs.append(-(a - eps_) ** 2 / (2 * tt) + torch.log(bj))
-            dlogs.append((a - eps_) / tt + dbj / bj)
-        logs = torch.stack(logs, -1)
-        wts = torch.softmax(logs, -1)
-        logf[~low] = torch.log(_x_over_sin(eps_)) + torch.logsumexp(logs, -1)
-        dlogf[~low] = -(_dlog_x_over_sin(eps_) + (wts * torch.stack(dlogs, -1)).sum(-1))  # d/dr = -d/dε
-    logp = t / 2 - 1.5 * torch.log(TWO_PI * t) + logf
-    return logp, dlogf
+def _octaves(t: torch.Tensor):
+    """Index groups of t by octave (so that each group's series length follows its own smallest t)."""
+    key = torch.floor(torch.log2(t)).long()
+    key, order = torch.sort(key)
+    values, counts = torch.unique_consecutive(key, return_counts=True)
+    return list(zip(values.tolist(), torch.split(order, counts.tolist())))
+
+
+def _higher(r: torch.Tensor, t: torch.Tensor, d: int, check: bool):
+    """S^d, d ≥ 4: the small-time expansion where it meets EXPANSION_TOLERANCE, else the capped eigen-series."""
+    logp = torch.full_like(r, math.nan)
+    dlogp = torch.full_like(r, math.nan)
+    err = torch.full_like(r, math.inf)
+    early = (t <= EXPANSION_MAX_TIME).nonzero().squeeze(-1)
+    if early.numel():
+        logp[early], dlogp[early], err[early] = expansion_log_prob_and_score(r[early], t[early], d)
+    rest = (~(err <= EXPANSION_TOLERANCE)).nonzero().squeeze(-1)
+    if rest.numel() == 0:
+        return logp, dlogp
+    for _, group in _octaves(t[rest]):
+        idx = rest[group]
+        t_min = float(t[idx].min())
+        if series_terms(t_min, d) > SERIES_MAX_TERMS:
+            i = int(idx[t[idx].argmin()])
+            raise InputError(
+                f"heat kernel on S^{d}: at t = {float(t[i]):.6g}, r = {float(r[i]):.6g} no representation reaches "
+                f"the tolerance: the small-time expansion's error estimate is {float(err[i]):.3g} (needs <= "
+                f"{EXPANSION_TOLERANCE:g}) and the eigen-series would need more than {SERIES_MAX_TERMS} terms "
+                "(the density there is about e^" f"{-float(r[i]) ** 2 / (2 * float(t[i])):.4g} of its peak)",
+                row=i)
+        logp[idx], dlogp[idx] = gegenbauer_series(r[idx], t[idx], d, check)
+    return logp, dlogp
 
 
 def _dispatch(r: torch.Tensor, t: torch.Tensor, d: int, check: bool):
@@ -290,20 +154,13 @@ def _dispatch(r: torch.Tensor, t: torch.Tensor, d: int, check: bool):
     r, t = r.reshape(-1), t.reshape(-1)
     if d == 1:
         lp, sc = wrapped_normal_log_prob_and_score(r, t)
-        return lp.reshape(shape), sc.reshape(shape)
-    logp = torch.empty_like(r)
-    dlogp = torch.empty_like(r)
-    small = t <= SMALL_TIME[d] if d in SMALL_TIME else torch.zeros_like(t, dtype=torch.bool)
-    if bool(small.any()):
-        fn = _s2_small if d == 2 else _s3_small
-        idx = small.nonzero().squeeze(-1)
-        for i in range(0, idx.numel(), _KERNEL_CHUNK):  # bounded (rows x nodes) temporaries
-            sl = idx[i:i + _KERNEL_CHUNK]
-            logp[sl], dlogp[sl] = fn(r[sl], t[sl])
-    if bool((~small).any()):
-        lp, sc = _series(r[~small], t[~small], d, check)
-        logp[~small], dlogp[~small] = lp, sc
-    return logp.reshape(shape), dlogp.reshape(shape)
+    elif d == 2:
+        lp, sc = s2_log_prob_and_score(r, t)
+    elif d == 3:
+        lp, sc = _s3(r, t, check)
+    else:
+        lp, sc = _higher(r, t, d, check)
+    return lp.reshape(shape), sc.reshape(shape)
 
 
 def sphere_heat_log_prob_and_score(r, t, d: int) -> tuple[torch.Tensor, torch.Tensor]:
@@ -320,8 +177,9 @@ def sphere_heat_log_prob_and_score(r, t, d: int) -> tuple[torch.Tensor, torch.Te
     (log p, d log p / dr), float64 tensors of the broadcast shape; the density is
     w.r.t. the Riemannian volume of the unit sphere, in nats.
 
-    Raises :class:`InputError` for t ≤ 0 / NaN, and (d ≥ 4 only) where the
-    eigen-series cannot reach 1e-10 relative accuracy (small t, r ≫ sqrt(t)).
+    Raises :class:`InputError` for t ≤ 0 / NaN, and (d ≥ 4 only) where neither the small-time
+    expansion nor the eigen-series (at most ``SERIES_MAX_TERMS`` terms, rounding error ≤ 1e-10
+    relative) reaches its tolerance: small t and r close to π, where the density is far below its peak.
     """
     if not isinstance(d, int) or d < 1:
         raise InputError(f"sphere heat kernel: d must be an integer >= 1, got {d!r}", field="d")
@@ -429,6 +287,20 @@ def _invert(cdf, f, df, u):
     return (j.to(DTYPE) + x) * h
 
 
+def _sample_per_time(t: torch.Tensor, u: torch.Tensor, d: int, chunk: int = 8192) -> torch.Tensor:
+    """Inverse-CDF draws with a table per distinct time, EXACT_MAX_TIMES tables at a time (1-D t, u)."""
+    out = torch.empty_like(t)
+    t_unique, inv = torch.unique(t, return_inverse=True)
+    for j in range(0, t_unique.numel(), EXACT_MAX_TIMES):
+        big_r, cdf, f, df = _radial_tables(t_unique[j:j + EXACT_MAX_TIMES], d)
+        k = ((inv >= j) & (inv < j + EXACT_MAX_TIMES)).nonzero().squeeze(-1)
+        row = inv[k] - j
+        for i in range(0, k.numel(), chunk):
+            kk, rr = k[i:i + chunk], row[i:i + chunk]
+            out[kk] = big_r[rr] * _invert(cdf[rr], f[rr], df[rr], u[kk])
+    return out
+
+
 def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) -> torch.Tensor:
     """Draws of the geodesic distance r = d(x_0, x_t) on S^d, one per entry of ``t``.
 
@@ -442,7 +314,8 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
     time. Larger batches (one time per sample, as in training) use one cached
     table over log t ∈ [1e-6, 64] (step 0.04) with 4-point Lagrange
     interpolation in log t of CDF and density at fixed s (error ~1e-7 in
-    probability); times outside that range get a table each.
+    probability); times outside that range get a table each (one uniform draw
+    per entry in every case).
     """
     t = torch.as_tensor(t, dtype=DTYPE)
     shape = t.shape
@@ -463,8 +336,9 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
             out[i:i + chunk] = big_r[k] * _invert(cdf[k], f[k], df[k], u[i:i + chunk])
         return out.clamp(0.0, PI).reshape(shape)
     inside = (t >= TABLE_T_MIN) & (t <= TABLE_T_MAX)
-    if bool((~inside).any()):
-        out[~inside] = sample_sphere_radius(t[~inside], d, generator)
+    outside = (~inside).nonzero().squeeze(-1)
+    if outside.numel():
+        out[outside] = _sample_per_time(t[outside], u[outside], d)
     lo, cdf, f, df = _log_time_table(d)
     m = cdf.shape[0]
     idx = inside.nonzero().squeeze(-1)

@@ -13,8 +13,15 @@ import torch
 from scipy import stats
 from scipy.integrate import quad, quad_vec
 
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
 from heatwalk import InputError
-from heatwalk.kernels.sphere_heat import log_sphere_area, sample_sphere_radius, sphere_heat_log_prob_and_score
+from heatwalk.kernels import sphere_s2
+from heatwalk.kernels.sphere_expansion import expansion_log_prob_and_score
+from heatwalk.kernels.sphere_heat import (EXPANSION_TOLERANCE, log_sphere_area, sample_sphere_radius,
+                                          sphere_heat_log_prob_and_score)
+from heatwalk.kernels.sphere_series import SERIES_MAX_TERMS, series_terms
 from heatwalk.spaces import Sphere, Torus, from_config
 from stat_thresholds import p_value_threshold
 
@@ -86,12 +93,14 @@ def s2_reference(r, t):
     digits_lost = r * r / (2 * t) / 2.3
     if digits_lost < 40:  # the eigen-series is summable at 50 + digits_lost digits
         return mp_gegenbauer_series(r, t, 2, extra_digits=int(digits_lost) + 5)
-    # derivative: central difference; step below π - r so both points lie in [0, π]. Next to π the
-    # score is ~(π - r)/t², so the difference needs ~50 digits there, 30 elsewhere.
-    dps = 50 if math.pi - r < 1e-5 else 30
+    # derivative: central difference; step below π - r so both points lie in [0, π], and below 1e-7 t
+    # (the third derivative of log p grows like t^-3 next to the antipode: truncation error h² f'''/6).
+    # Next to π the score is ~(π - r)/t², so the difference needs ~50 digits there, 30 elsewhere.
+    h = min(1e-10, 1e-7 * t)
+    dps = 50 if (math.pi - r < 1e-5 or h < 1e-10) else 30
     lp = mp_s2_mehler(r, t, dps)
     with mp.workdps(dps):
-        h = min(mp.mpf(10) ** -10, (mp.pi - mp.mpf(r)) / 4)
+        h = min(mp.mpf(h), (mp.pi - mp.mpf(r)) / 4)
         d = (mp_s2_mehler(mp.mpf(r) + h, t, dps) - mp_s2_mehler(mp.mpf(r) - h, t, dps)) / (2 * h)
     return lp, d
 
@@ -142,20 +151,142 @@ def test_higher_d_series_against_mpmath(d):
 
 
 def test_higher_d_refuses_inaccurate_regime():
+    # r = 3 at t = 1e-3: beyond the expansion's radius, and the series (430 terms) cancels to noise there
     with pytest.raises(InputError, match="cannot reach 1e-10 relative accuracy"):
         sphere_heat_log_prob_and_score(torch.tensor([0.1, 3.0], dtype=F64), torch.tensor(1e-3, dtype=F64), 4)
 
 
-@pytest.mark.parametrize("d", [2, 3])
+def mp_s5_from_s3(r, t):
+    """S^5 from the S^3 image sum by the dimension-raising identity p_{d+2} = -e^{dt/2}/(2π sin r) dp_d/dr
+    (from d/dx C_n^λ = 2λ C_{n-1}^{λ+1}, DLMF 18.9.19), in closed form; d/dr log p by mpmath diff."""
+    with mp.workdps(80):
+        t = mp.mpf(t)
+
+        def logp(r):
+            f = fp = mp.mpf(0)
+            for k in range(-(int(3 * mp.sqrt(t)) + 4), int(3 * mp.sqrt(t)) + 5):
+                a = r + 2 * mp.pi * k
+                e = mp.exp(-a * a / (2 * t))
+                f, fp = f + a * e, fp + (1 - a * a / t) * e  # S^3 numerator and its r-derivative
+            c3 = mp.exp(t / 2) * (2 * mp.pi * t) ** mp.mpf(-1.5)
+            return mp.log(-c3 * mp.exp(1.5 * t) / (2 * mp.pi) * (fp * mp.sin(r) - f * mp.cos(r)) / mp.sin(r) ** 3)
+
+        return logp(mp.mpf(r)), mp.diff(logp, mp.mpf(r))
+
+
+def mp_s4_from_s2(r, t, dps=50):
+    """S^4 from the S^2 Mehler–Dirichlet integral by the same identity, p_4 = -e^t/(2π sin r) dp_2/dr:
+    log p_4 = t - log(2π sin r) + log p_2 + log(-g1), d/dr log p_4 = -cot r + g1 + g2/g1, with g1, g2 the
+    first two r-derivatives of log p_2 by central differences (step 1e-9 r, error ~1e-18 relative)."""
+    with mp.workdps(dps):
+        r, t = mp.mpf(r), mp.mpf(t)
+        h = mp.mpf(10) ** -9 * r
+        fm, f0, fp = (mp_s2_mehler(x, t, dps) for x in (r - h, r, r + h))
+        g1, g2 = (fp - fm) / (2 * h), (fp - 2 * f0 + fm) / h ** 2
+        return t - mp.log(2 * mp.pi * mp.sin(r)) + f0 + mp.log(-g1), -mp.cot(r) + g1 + g2 / g1
+
+
+def test_dimension_raising_references_agree_with_series():
+    # cross-check of the two references against the 50-digit Gegenbauer series where all apply, to 1e-18
+    for r, t in [(0.3, 0.05), (1.0, 0.1)]:
+        for d, ref in ((5, mp_s5_from_s3), (4, mp_s4_from_s2)):
+            a = mp_gegenbauer_series(r, t, d, extra_digits=int(r * r / (2 * t) / 2.3) + 5)
+            b = ref(r, t)
+            assert abs(a[0] - b[0]) < 1e-18 and abs(a[1] - b[1]) < 1e-18, (d, r, t, a, b)
+
+
+@pytest.mark.parametrize("d", [4, 5])
+def test_higher_d_small_time_against_mpmath(d):
+    # source: 50-digit Gegenbauer series where it is summable (r²/2t < 60 digits), else the dimension-raising
+    # references above (S^5 closed form from S^3; S^4 from the S^2 Mehler–Dirichlet integral).
+    # Tolerance: log p 1e-12, d/dr log p 1e-11, relative to max(1, |.|) (measured worst: 2e-14, 5e-14).
+    cases = [(1e-6, r) for r in (1e-4, 2e-3, 1.0, 2.5)] + [(1e-4, r) for r in (0.0, 0.003, 0.02, 0.5, 2.0, 2.8)]
+    cases += [(1e-2, r) for r in (0.0, 0.05, 0.2, 1.0, 2.5)] + [(0.05, r) for r in (0.3, 1.0, 2.0)]
+    if d == 4:  # the S^4 reference costs ~2 s a point: fewer far points
+        cases = [c for c in cases if c[1] * c[1] / (2 * c[0]) < 138 or c in ((1e-6, 2.5), (1e-4, 2.0))]
+    for t, r in cases:
+        lp, sc = kernel(r, t, d)
+        if r * r / (2 * t) < 138:
+            rl, rs = (float(v) for v in mp_gegenbauer_series(r, t, d, extra_digits=int(r * r / (2 * t) / 2.3) + 5))
+        else:
+            rl, rs = (float(v) for v in (mp_s5_from_s3(r, t) if d == 5 else mp_s4_from_s2(r, t)))
+        assert abs(lp - rl) <= 1e-12 * max(1.0, abs(rl)), (d, t, r, lp, rl)
+        assert abs(sc - rs) <= 1e-11 * max(1.0, abs(rs)), (d, t, r, sc, rs)
+
+
+@pytest.mark.parametrize("d", [4, 5, 6])
+def test_higher_d_tiny_time_is_bounded(d):
+    # At t = 1e-12 the eigen-series would need ~1e7 terms: its term count stops at the cap, and the small-time
+    # expansion is the method used (its error estimate meets the tolerance). Values against the closed-form
+    # first transport coefficient v_1(r) = α²/2 - α(α-1)(1/r - cot r)/(2r) of the same expansion (solved by
+    # hand from the transport equation in heatwalk.kernels.sphere_expansion); t² terms are below 1e-23.
+    t = 1e-12
+    assert series_terms(t, d) == SERIES_MAX_TERMS + 1
+    a = 0.5 * (d - 1)
+    r = torch.tensor([0.0, 1e-6, 3e-6, 1e-3, 1.0, 2.5], dtype=F64)
+    err = expansion_log_prob_and_score(r, torch.full_like(r, t), d)[2]
+    assert bool((err <= EXPANSION_TOLERANCE).all()), err
+    lp, sc = sphere_heat_log_prob_and_score(r, torch.full_like(r, t), d)
+    for i, ri in enumerate(r.tolist()):
+        v1 = 0.5 * a * a - a * (a - 1) / 6 if ri == 0 else 0.5 * a * a - 0.5 * a * (a - 1) * (1 / ri - 1 / math.tan(ri)) / ri
+        ref = -0.5 * d * math.log(2 * math.pi * t) - ri * ri / (2 * t) + (a * math.log(ri / math.sin(ri)) if ri else 0.0)
+        ref += math.log1p(v1 * t)
+        assert abs(float(lp[i]) - ref) <= 1e-15 * max(1.0, abs(ref)), (d, ri, float(lp[i]), ref)
+    with pytest.raises(InputError, match=rf"S\^{d}: at t = 1e-12, r = 3 no representation reaches the tolerance"):
+        sphere_heat_log_prob_and_score(torch.tensor([3.0], dtype=F64), torch.tensor([t], dtype=F64), d)
+
+
+@given(st.sampled_from([1, 2, 3, 4, 6]), st.floats(min_value=math.log(1e-12), max_value=math.log(1e6)),
+       st.floats(min_value=0.0, max_value=math.pi))
+@settings(max_examples=400, deadline=None)
+def test_kernel_finite_or_input_error(d, log_t, r):
+    # property: for t log-uniform in [1e-12, 1e6] and r in [0, π] the kernel returns finite log p and score,
+    # or (d >= 4 only) raises InputError naming d and t
+    t = math.exp(log_t)
+    try:
+        lp, sc = kernel(r, t, d)
+    except InputError as e:
+        assert d >= 4 and f"S^{d}: at t = " in str(e), str(e)
+        return
+    assert math.isfinite(lp) and math.isfinite(sc), (d, t, r, lp, sc)
+
+
+S2_BOUNDARY_W = (1.0, 1.9, 2.1, 3.9, 4.1, 7.9, 8.1, 11.9, 12.1, 19.9, 20.1, 31.9, 32.1, 37.9, 38.2, 45.0, 63.9, 64.1,
+                 180.9, 181.1, 723.9, 724.2, 8191.0, 8193.0, 1e5)
+
+
+def test_s2_switch_points_against_mpmath():
+    # source: s2_reference (50-digit Legendre series, or the Mehler–Dirichlet integral by mpmath quad).
+    # Points on both sides of every change of representation or node count (W = 2π(π - θ)/t, the Legendre
+    # region t >= 0.6 or t >= 0.15 with θ² <= 10 t). Tolerance: log p 1e-13 and d/dr log p 1e-12 relative to
+    # max(1, |.|), plus for the score the rounding floor 8 eps π / t of -θ/t + (integral term) next to the
+    # antipode (measured worst: 3e-15 and 4e-14 away from it).
+    pts = [(math.pi - w * t / (2 * math.pi), t) for t in (1e-5, 1e-3, 0.05, 0.3, 0.59) for w in S2_BOUNDARY_W
+           if w * t / (2 * math.pi) <= math.pi]
+    pts += [(math.sqrt(10 * t) * f, t) for t in (0.151, 0.4) for f in (1 - 1e-9, 1 + 1e-9)]
+    pts += [(th, t) for t in (0.599, 0.601) for th in (0.0, 2.5, math.pi)]
+    codes = set()
+    for th, t in pts:
+        codes.add(int(sphere_s2.plan(torch.tensor([th], dtype=F64), torch.tensor([t], dtype=F64))))
+        lp, sc = kernel(th, t, 2)
+        rl, rs = (float(v) for v in s2_reference(th, t))
+        assert abs(lp - rl) <= 1e-13 * max(1.0, abs(rl)), (th, t, lp, rl)
+        assert abs(sc - rs) <= 1e-12 * max(1.0, abs(rs)) + 8 * 2.2e-16 * math.pi / t, (th, t, sc, rs)
+    rules = {c for c in codes if c >= sphere_s2.LAGUERRE_CODE}
+    assert len(rules) == 12 and min(codes) < sphere_s2.LAGUERRE_CODE  # every quadrature rule and the series ran
+
+
+@pytest.mark.parametrize("d", [2, 3, 4, 5])
 def test_short_time_asymptotics(d):
     # source: Minakshisundaram–Pleijel leading term with the van Vleck determinant,
-    # p ≈ (2πt)^{-d/2} (r / sin r)^{(d-1)/2} e^{-r²/2t} (1 + O(t)); check |error| <= t for r <= 2
+    # p ≈ (2πt)^{-d/2} (r / sin r)^{(d-1)/2} e^{-r²/2t} (1 + O(t)), the O(t) constant at r = 0 being
+    # α²/2 - α(α-1)/6 < d (α = (d-1)/2; for S^2 the scalar curvature / 6 in time t, R = 2): check |error| <= d t
     for t in (1e-5, 1e-4, 1e-3):
         for r in (0.0, 0.3, 1.0, 2.0):
             lp, _ = kernel(r, t, d)
             lead = -0.5 * d * math.log(2 * math.pi * t) - r * r / (2 * t) + 0.5 * (d - 1) * math.log(
                 r / math.sin(r) if r > 0 else 1.0)
-            assert abs(lp - lead) <= t, (d, t, r, lp - lead)
+            assert abs(lp - lead) <= d * t, (d, t, r, lp - lead)
 
 
 @pytest.mark.parametrize("d", [2, 3])
@@ -304,3 +435,15 @@ def test_validation_errors():
         Sphere(0)
     with pytest.raises(InputError, match="time must be finite and > 0"):
         s2.log_kernel(s2.random_uniform(2), s2.random_uniform(2), torch.tensor([0.1, -1.0]))
+
+
+@pytest.mark.parametrize("d", [2, 4])
+def test_sampler_many_times_outside_the_table(d):
+    # > 64 distinct times below the cached table's range (1e-6): one table per time, no recursion. At t ~ 1e-9
+    # the law of r is that of |N(0, t I_d)| up to O(t): E[r²] = d t. 4000 draws: standard error of the mean of
+    # r²/(d t) is sqrt(2 / (d n)); tolerance 5 standard errors (failure rate ~6e-7).
+    g = torch.Generator().manual_seed(11)
+    t = 1e-9 * (1 + 1e-3 * torch.rand(4000, dtype=F64, generator=g))
+    r = sample_sphere_radius(t, d, g)
+    ratio = float((r * r / (d * t)).mean())
+    assert abs(ratio - 1) < 5 * math.sqrt(2 / (d * 4000)), ratio
