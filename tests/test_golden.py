@@ -12,7 +12,12 @@ import pytest
 from golden.golden_values import GOLDEN_FILE, compute_golden
 
 #: key prefix -> (relative tolerance, reason). Everything else: exact equality.
-ROUNDING: dict[str, tuple[float, str]] = {}
+ROUNDING: dict[str, tuple[float, str]] = {
+    # after the redesign: the S² kernel was rewritten for speed (fewer quadrature nodes chosen by t, grouped by
+    # method); its values agree with the old ones to 3e-15, and the adaptive ODE then takes slightly different
+    # steps (log-likelihoods differ by up to 1.5e-7, within its tolerance rtol=1e-4)
+    "sphere2/": (1e-6, "S² kernel rewritten for speed"),
+}
 
 
 @pytest.fixture(scope="module")
