@@ -8,12 +8,35 @@ accuracy; one training loop and one set of samplers serve every space.
     >>> space = heatwalk.spaces.Torus(2)
     >>> model = heatwalk.fit(space, angles)          # doctest: +SKIP
     >>> samples = model.sample(1000)                 # doctest: +SKIP
+
+The public names are imported on first use (PEP 562), so ``import heatwalk``
+and ``heatwalk --help`` / ``--version`` do not load torch.
 """
 
 from heatwalk.errors import InputError
-from heatwalk import spaces
-from heatwalk.core.training import fit
-from heatwalk.core.model import Model, load
 
-__all__ = ["InputError", "spaces", "fit", "Model", "load"]
-__version__ = "0.1.0"
+__version__ = "0.2.0"
+__all__ = ["InputError", "spaces", "fit", "Model", "load", "__version__"]
+
+_LAZY = {
+    "spaces": ("heatwalk.spaces", None),
+    "fit": ("heatwalk.core.training", "fit"),
+    "Model": ("heatwalk.core.model", "Model"),
+    "load": ("heatwalk.core.model", "load"),
+}
+
+
+def __getattr__(name):
+    if name not in _LAZY:
+        raise AttributeError(f"module 'heatwalk' has no attribute {name!r}")
+    import importlib
+
+    module_name, attr = _LAZY[name]
+    module = importlib.import_module(module_name)
+    value = module if attr is None else getattr(module, attr)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))

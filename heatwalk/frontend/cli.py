@@ -94,6 +94,27 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+COMMANDS = {
+    "demo": "fit and sample the built-in invented torsion-angle scenario",
+    "fit": "fit a model to a data file",
+    "sample": "draw samples from a fitted model",
+    "evaluate": "report log-likelihood and sample metrics of a model on data",
+}
+
+
+def _top_level_parser() -> argparse.ArgumentParser:
+    """The parser of ``heatwalk [--help | --version]``: command names only, so it needs no torch."""
+    from heatwalk import __version__
+
+    p = _Parser(prog="heatwalk", description="Diffusion models on manifolds and finite state spaces with exact "
+                "heat kernels.", epilog="Run 'heatwalk COMMAND --help' for a command's options.")
+    p.add_argument("--version", action="version", version=f"heatwalk {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name, text in COMMANDS.items():
+        sub.add_parser(name, help=text, add_help=False)
+    return p
+
+
 def _command(name: str):
     from heatwalk.frontend import commands, demo
 
@@ -102,7 +123,11 @@ def _command(name: str):
 
 
 def main(argv=None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
     try:
+        if not argv or argv[0] not in COMMANDS:
+            args = _top_level_parser().parse_args(argv)  # --help, --version, or an error naming the commands
+            raise InputError("choose a command: " + ", ".join(COMMANDS) + " (see heatwalk --help)")
         args = build_parser().parse_args(argv)
         return _command(args.func)(args)
     except InputError as e:
