@@ -245,6 +245,17 @@ class Space(ABC):
     def dist(self, x: torch.Tensor, y: torch.Tensor) -> torch.Tensor:
         """Distance between points (geodesic on a manifold, Hamming on sequences)."""
 
+    def pairwise_dist(self, x, y, chunk: int = 2048) -> torch.Tensor:
+        """All distances d(x_i, y_j), shape (n, m), float64, computed ``chunk`` rows of x at a time."""
+        shape = self.ambient_shape
+        out = []
+        for i in range(0, x.shape[0], chunk):
+            xi = x[i:i + chunk]
+            a = xi.reshape(xi.shape[0], 1, *shape).expand(xi.shape[0], y.shape[0], *shape)
+            b = y.reshape(1, y.shape[0], *shape).expand_as(a)
+            out.append(self.dist(a.reshape(-1, *shape), b.reshape(-1, *shape)).reshape(xi.shape[0], y.shape[0]))
+        return torch.cat(out, dim=0).to(DTYPE)
+
     @abstractmethod
     def random_uniform(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
         """n points from the normalised base measure (for compact / finite spaces)."""

@@ -101,6 +101,9 @@ class Product(Space):
         """sqrt(Σ d_i²) over the factors (Hamming distance for finite factors)."""
         return torch.sqrt(sum(f.dist(a, b).to(DTYPE) ** 2 for f, a, b in zip(self.factors, x, y)))
 
+    def pairwise_dist(self, x, y, chunk: int = 2048) -> torch.Tensor:
+        return torch.sqrt(sum(f.pairwise_dist(a, b, chunk) ** 2 for f, a, b in zip(self.factors, x, y)))
+
     def random_uniform(self, n, generator=None):
         return tuple(f.random_uniform(n, generator) for f in self.factors)
 

@@ -67,13 +67,13 @@ def sample_metrics(space, samples, half_a, half_b, bandwidth: float | None = Non
             for m in SAMPLE_METRICS if m.requires <= space.capabilities}
 
 
-def split_halves(data: torch.Tensor, seed: int) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
+def split_halves(space, data, seed: int):
     """(permutation, half A, half B) of the data shuffled with ``seed``."""
-    n = data.shape[0]
+    n = space.n_points(data)
     if n < 4:
         raise InputError(f"need at least 4 data points to evaluate, got {n}", field="data")
     perm = torch.randperm(n, generator=torch.Generator().manual_seed(seed))
-    return perm, data[perm[: n // 2]], data[perm[n // 2: 2 * (n // 2)]]
+    return perm, space.take(data, perm[: n // 2]), space.take(data, perm[n // 2: 2 * (n // 2)])
 
 
 def likelihood_section(model, points: torch.Tensor) -> dict:
@@ -92,11 +92,12 @@ def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 30
              likelihood_points: int = 500, progress: bool = False) -> tuple[dict, torch.Tensor]:
     """Evaluate ``model`` on validated points ``data``; returns (report dict, the samples drawn)."""
     space = model.space
-    perm, half_a, half_b = split_halves(data, seed)
-    report: dict = {"space": space.config(), "n_data": int(data.shape[0]), "n_half_a": int(half_a.shape[0]),
-                    "n_half_b": int(half_b.shape[0]), "seed": seed, "timings_s": {}}
+    perm, half_a, half_b = split_halves(space, data, seed)
+    n_b = space.n_points(half_b)
+    report: dict = {"space": space.config(), "n_data": space.n_points(data), "n_half_a": space.n_points(half_a),
+                    "n_half_b": n_b, "seed": seed, "timings_s": {}}
     t0 = time.perf_counter()
-    samples = model.sample(int(half_b.shape[0]), steps=sample_steps, sampler=sampler, seed=seed + 1,
+    samples = model.sample(n_b, steps=sample_steps, sampler=sampler, seed=seed + 1,
                            progress=progress)
     report["timings_s"]["sampling"] = time.perf_counter() - t0
     report["sampler"] = sampler or model.objective.default_sampler
@@ -106,7 +107,7 @@ def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 30
     report["timings_s"]["metrics"] = time.perf_counter() - t0
     if likelihood_points > 0:
         t0 = time.perf_counter()
-        report["log_likelihood"] = likelihood_section(model, data[perm[:likelihood_points]])
+        report["log_likelihood"] = likelihood_section(model, space.take(data, perm[:likelihood_points]))
         report["timings_s"]["log_likelihood"] = time.perf_counter() - t0
     return report, samples
 

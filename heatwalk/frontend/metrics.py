@@ -27,29 +27,23 @@ from heatwalk.errors import InputError
 from heatwalk.spaces.base import Space
 
 
-def pairwise_dist(space: Space, x: torch.Tensor, y: torch.Tensor, chunk: int = 2048) -> torch.Tensor:
-    """Geodesic distances d(x_i, y_j), shape (n, m), computed in chunks of rows."""
-    out = []
-    for i in range(0, x.shape[0], chunk):
-        xi = x[i:i + chunk]
-        a = xi.reshape(xi.shape[0], 1, *space.ambient_shape).expand(xi.shape[0], y.shape[0], *space.ambient_shape)
-        b = y.reshape(1, y.shape[0], *space.ambient_shape).expand_as(a)
-        out.append(space.dist(a.reshape(-1, *space.ambient_shape), b.reshape(-1, *space.ambient_shape))
-                   .reshape(xi.shape[0], y.shape[0]))
-    return torch.cat(out, dim=0)
+def pairwise_dist(space: Space, x, y) -> torch.Tensor:
+    """The space's distances d(x_i, y_j), shape (n, m) (:meth:`Space.pairwise_dist`)."""
+    return space.pairwise_dist(x, y)
 
 
 def median_bandwidth(space: Space, x: torch.Tensor, n: int = 1000) -> float:
     """Median pairwise geodesic distance of (up to n points of) x: the median heuristic."""
-    x = x[:n]
+    x = space.take(x, slice(0, n))
     d = pairwise_dist(space, x, x)
-    iu = torch.triu_indices(x.shape[0], x.shape[0], offset=1)
+    iu = torch.triu_indices(d.shape[0], d.shape[0], offset=1)
     return float(d[iu[0], iu[1]].median())
 
 
 def mmd_squared(space: Space, x: torch.Tensor, y: torch.Tensor, bandwidth: float) -> float:
     """Unbiased estimate of MMD² (may be slightly negative when the laws agree)."""
-    if x.shape[0] < 2 or y.shape[0] < 2:
+    n, m = space.n_points(x), space.n_points(y)
+    if n < 2 or m < 2:
         raise InputError("MMD² needs at least 2 points in each sample")
     if not bandwidth > 0:
         raise InputError(f"bandwidth must be positive, got {bandwidth}", field="bandwidth")
@@ -57,7 +51,6 @@ def mmd_squared(space: Space, x: torch.Tensor, y: torch.Tensor, bandwidth: float
     kxx = torch.exp(g * pairwise_dist(space, x, x).square())
     kyy = torch.exp(g * pairwise_dist(space, y, y).square())
     kxy = torch.exp(g * pairwise_dist(space, x, y).square())
-    n, m = x.shape[0], y.shape[0]
     sxx = (kxx.sum() - kxx.diagonal().sum()) / (n * (n - 1))
     syy = (kyy.sum() - kyy.diagonal().sum()) / (m * (m - 1))
     return float(sxx + syy - 2 * kxy.mean())
@@ -70,12 +63,13 @@ def mmd_with_floor(space: Space, samples: torch.Tensor, heldout_a: torch.Tensor,
     ``samples`` is cut to the size of B so both statistics have the same sample sizes.
     Returns a dict with ``mmd2``, ``floor``, ``bandwidth``, ``n``.
     """
-    n = min(samples.shape[0], heldout_b.shape[0])
+    n = min(space.n_points(samples), space.n_points(heldout_b))
     if bandwidth is None:
         bandwidth = median_bandwidth(space, heldout_a)
+    first = slice(0, n)
     return {
-        "mmd2": mmd_squared(space, samples[:n], heldout_a, bandwidth),
-        "floor": mmd_squared(space, heldout_b[:n], heldout_a, bandwidth),
+        "mmd2": mmd_squared(space, space.take(samples, first), heldout_a, bandwidth),
+        "floor": mmd_squared(space, space.take(heldout_b, first), heldout_a, bandwidth),
         "bandwidth": bandwidth,
         "n": int(n),
     }
