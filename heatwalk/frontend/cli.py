@@ -76,6 +76,25 @@ def _add_sample_and_evaluate_parsers(sub, add_flags) -> None:
     e.set_defaults(func="evaluate")
 
 
+def _add_torsions_parser(sub) -> None:
+    t = sub.add_parser("torsions", help=COMMANDS["torsions"], description="One row per protein residue (per frame "
+                       "of a trajectory) with structure, frame, chain, residue_number, insertion_code, residue_name "
+                       "and phi, psi, omega (degrees); chain ends and gaps are left out unless --keep-incomplete. "
+                       "Needs the data extra (MDAnalysis).",
+                       epilog="example: heatwalk torsions 1abc.pdb 2xyz.cif --chi --out torsions.csv && "
+                              "heatwalk fit torsions.csv --space torus --degrees --columns phi,psi --out model")
+    t.add_argument("structures", nargs="+", metavar="FILE", help="PDB / mmCIF files, or trajectory files with "
+                   "--topology")
+    t.add_argument("--topology", help="topology file (e.g. PSF) for trajectory files (e.g. DCD, XTC)")
+    t.add_argument("--chi", action="store_true", help="also side-chain angles chi1..chi5 (empty where undefined)")
+    t.add_argument("--keep-incomplete", action="store_true",
+                   help="keep residues whose phi or psi is undefined (chain ends, gaps), with empty cells")
+    t.add_argument("--out", required=True, help="table to write: .csv, .tsv or .parquet")
+    t.add_argument("--overwrite", action="store_true", help="replace an existing table")
+    t.add_argument("--quiet", action="store_true", help="no progress bar")
+    t.set_defaults(func="torsions")
+
+
 def build_parser() -> argparse.ArgumentParser:
     from heatwalk.frontend.options import add_space_option_flags
 
@@ -91,6 +110,7 @@ def build_parser() -> argparse.ArgumentParser:
     d.set_defaults(func="demo")
     _add_fit_parser(sub, add_space_option_flags)
     _add_sample_and_evaluate_parsers(sub, add_space_option_flags)
+    _add_torsions_parser(sub)
     return p
 
 
@@ -99,6 +119,7 @@ COMMANDS = {
     "fit": "fit a model to a data file",
     "sample": "draw samples from a fitted model",
     "evaluate": "report log-likelihood and sample metrics of a model on data",
+    "torsions": "compute backbone (and side-chain) torsion angles of protein structures as a table",
 }
 
 
@@ -119,7 +140,7 @@ def _command(name: str):
     from heatwalk.frontend import commands, demo
 
     return {"demo": demo.cmd_demo, "fit": commands.cmd_fit, "sample": commands.cmd_sample,
-            "evaluate": commands.cmd_evaluate}[name]
+            "evaluate": commands.cmd_evaluate, "torsions": commands.cmd_torsions}[name]
 
 
 def main(argv=None) -> int:

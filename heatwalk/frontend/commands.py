@@ -87,3 +87,16 @@ def cmd_evaluate(args) -> int:
     print(format_table(report))
     print(f"wrote {j}, {t}" + (f", {pic}" if pic else " (no picture for this space)"))
     return 0
+
+
+def cmd_torsions(args) -> int:
+    from heatwalk.io.structures import torsion_table, write_torsion_table
+
+    out = Path(args.out)
+    _refuse_existing(out, args.overwrite)
+    table = torsion_table(args.structures, topology=args.topology, chi=args.chi,
+                          keep_incomplete=args.keep_incomplete, progress=not args.quiet)
+    write_torsion_table(table, out, overwrite=args.overwrite)
+    frames = table["frame"].nunique() if len(table) else 0
+    print(f"wrote {len(table)} residues ({frames} frame(s), {len(args.structures)} file(s)) to {out}")
+    return 0
