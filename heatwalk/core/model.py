@@ -156,13 +156,33 @@ class Model:
             "record": self.record,
         }
 
-    def save(self, path, *, overwrite: bool = False) -> Path:
-        """Write the model folder atomically; refuses to replace an existing folder unless ``overwrite``."""
+    def save(self, path, *, overwrite: bool = False, extra_files: dict[str, str] | None = None) -> Path:
+        """Write the model folder atomically; refuses to replace an existing folder unless ``overwrite``.
+
+        ``extra_files`` ({name: text}) are written into the folder too (e.g. the CLI's resolved config).
+        """
         path = Path(path)
         with atomic_dir(path, overwrite=overwrite) as tmp:
             (tmp / "model.json").write_text(json.dumps(self.config(), indent=2, sort_keys=True) + "\n")
             torch.save(self.network.state_dict(), tmp / "weights.pt")
+            for name, text in (extra_files or {}).items():
+                if Path(name).name != name or name in ("model.json", "weights.pt"):
+                    raise InputError(f"extra file name {name!r} must be a plain file name", field="extra_files")
+                (tmp / name).write_text(text)
         return path
+
+    def __repr__(self) -> str:
+        r = self.record
+        parts = [f"space={self.space!r}", f"objective={self.objective.name}"]
+        if "n_data" in r:
+            parts.append(f"n_data={r['n_data']}")
+        if "steps" in r:
+            parts.append(f"steps={r['steps']}")
+        if r.get("mean_loss_last_100_steps") is not None:
+            parts.append(f"loss={r['mean_loss_last_100_steps']:.4g}")
+        if self.classes is not None:
+            parts.append(f"classes={len(self.classes)}")
+        return f"Model({', '.join(parts)})"
 
 
 def load(path) -> Model:
