@@ -28,9 +28,7 @@ from heatwalk.errors import InputError
 from heatwalk.io.table_base import Table, check_finite, position_names, select_columns
 
 
-def _table(path: Path, data_cols: list[np.ndarray], names, label_values, label_name, ignored, n: int) -> Table:
-    values = np.column_stack(data_cols).astype(np.float64, copy=False) if data_cols else np.empty((n, 0))
-    values = np.ascontiguousarray(values)
+def _table(path: Path, values: np.ndarray, names, label_values, label_name, ignored, n: int) -> Table:
     check_finite(values, names, lambda i: f"{path}, row {i + 1}")
     return Table(values=values, names=list(names), lines=np.arange(1, n + 1, dtype=np.int64), ignored=ignored,
                  labels=label_values, label_name=label_name, path=path, unit="row")
@@ -70,16 +68,22 @@ def read_parquet(path: Path, *, columns=None, labels=None, need_data: bool = Tru
     n = table.num_rows
     if n == 0:
         raise InputError(f"{path}: no data rows (the Parquet table has 0 rows)")
-    cols = []
+    values = np.empty((n, len(data)), dtype=np.float64, order="F")  # each column contiguous: one copy
+    label_values = None
     for k, j in enumerate(data + ([label] if label is not None else [])):
         col = table.column(k)
         if col.null_count:
             i = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
             raise InputError(f"{path}, row {i + 1}, column {j + 1} ({names[j]}): missing value (null), "
                              f"expected {'a number' if j in data else 'a label'}", row=i, field=names[j])
-        cols.append(col.to_numpy())
-    label_values = cols.pop() if label is not None else None
-    return _table(path, cols, [names[j] for j in data], label_values,
+        if j == label:
+            label_values = col.to_numpy()
+            continue
+        at = 0
+        for chunk in col.chunks:
+            values[at:at + len(chunk), k] = chunk.to_numpy(zero_copy_only=False)
+            at += len(chunk)
+    return _table(path, values, [names[j] for j in data], label_values,
                   None if label is None else names[label], ignored, n)
 
 
@@ -118,5 +122,8 @@ def read_npz(path: Path, *, columns=None, labels=None, need_data: bool = True) -
     n = len(arrays[0])
     if n == 0:
         raise InputError(f"{path}: no data rows (the arrays have length 0)")
-    return _table(path, [arrays[j] for j in data], [names[j] for j in data],
+    values = np.empty((n, len(data)), dtype=np.float64, order="F")
+    for k, j in enumerate(data):
+        values[:, k] = arrays[j]
+    return _table(path, values, [names[j] for j in data],
                   None if label is None else arrays[label], None if label is None else names[label], ignored, n)

@@ -31,7 +31,7 @@ class Table:
 
     Attributes
     ----------
-    values : float64 array (n, m), every entry finite
+    values : float64 array (n, m), every entry finite (column-major when that saved a copy)
     names : the m data column names, in the order of ``values``
     lines : int64 array (n,): the 1-based line of each row in a text file, or the 1-based row
         number in a Parquet / NPZ file (see ``unit``)
@@ -160,5 +160,5 @@ def check_finite(values: np.ndarray, names: list[str], where_row, order=None) ->
     cols = np.flatnonzero(bad[i])
     j = int(cols[0]) if order is None else int(min(cols, key=lambda c: order[c]))
     number = j + 1 if order is None else order[j] + 1
-    raise InputError(f"{where_row(i)}, column {number} ({names[j]}): value {values[i, j]!r} is not finite "
-                     "(expected a finite number)", row=i, field=names[j])
+    raise InputError(f"{where_row(i)}, column {number} ({names[j]}): value {float(values[i, j])!r} is not "
+                     "finite, expected a finite number", row=i, field=names[j])
