@@ -70,8 +70,9 @@ def child(spec: str, path: str, trace: bool) -> None:
     traced = tracemalloc.get_traced_memory()[1] if trace else None
     peak = _status_kib("VmHWM") - before
     values = out.values if hasattr(out, "values") else out.to_numpy()
+    digest = hashlib.sha256(np.ascontiguousarray(values, dtype=np.float64).tobytes()).hexdigest()
     print(json.dumps({"seconds": seconds, "rss_mib": peak / 1024, "traced_mib": None if traced is None else
-                      traced / 2**20, "shape": list(np.shape(values)), "checksum": hashlib.sha256(np.ascontiguousarray(values, dtype=np.float64).tobytes()).hexdigest()}))
+                      traced / 2**20, "shape": list(np.shape(values)), "checksum": digest}))
 
 
 def run(spec: str, path: Path, trace: bool = False) -> dict:

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from heatwalk.errors import InputError
-from heatwalk.io.table_base import Table, check_finite, position_names, select_columns
+from heatwalk.io.table_base import Table, check_finite, position_names, select_columns, writable
 
 
 def _table(path: Path, values: np.ndarray, names, label_values, label_name, ignored, n: int) -> Table:
@@ -68,21 +68,20 @@ def read_parquet(path: Path, *, columns=None, labels=None, need_data: bool = Tru
     n = table.num_rows
     if n == 0:
         raise InputError(f"{path}: no data rows (the Parquet table has 0 rows)")
-    values = np.empty((n, len(data)), dtype=np.float64, order="F")  # each column contiguous: one copy
-    label_values = None
     for k, j in enumerate(data + ([label] if label is not None else [])):
         col = table.column(k)
         if col.null_count:
             i = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
             raise InputError(f"{path}, row {i + 1}, column {j + 1} ({names[j]}): missing value (null), "
                              f"expected {'a number' if j in data else 'a label'}", row=i, field=names[j])
-        if j == label:
-            label_values = col.to_numpy()
-            continue
-        at = 0
-        for chunk in col.chunks:
-            values[at:at + len(chunk), k] = chunk.to_numpy(zero_copy_only=False)
-            at += len(chunk)
+    label_values = table.column(len(data)).to_numpy() if label is not None else None
+    if data:
+        # pyarrow's own conversion puts columns of one type in one block: to_numpy is then a view of it
+        frame = table.select(list(range(len(data)))).to_pandas()
+        values = writable(frame.to_numpy(dtype=np.float64))
+        del frame
+    else:
+        values = np.empty((n, 0))
     return _table(path, values, [names[j] for j in data], label_values,
                   None if label is None else names[label], ignored, n)
 

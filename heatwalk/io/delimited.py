@@ -35,6 +35,7 @@ How it is read
 from __future__ import annotations
 
 import csv
+import io
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -42,9 +43,9 @@ import numpy as np
 import pandas as pd
 
 from heatwalk.errors import InputError
-from heatwalk.io.line_scan import Scan, is_skipped, pieces, scan_lines
+from heatwalk.io.line_scan import SUSPECT, Scan, pieces, scan_lines
 from heatwalk.io.source import is_gzip, where_in_text
-from heatwalk.io.table_base import Table, cell_problem, position_names, select_columns
+from heatwalk.io.table_base import Table, cell_problem, position_names, select_columns, writable
 
 #: delimiters tried, in order of preference on a tie, when none is stated
 DELIMITERS = (",", "\t", ";", "|")
@@ -122,21 +123,26 @@ class _Plan:
     columns_given: bool
 
 
-def _parse(plan: _Plan, skip, blank_lines: bool) -> pd.DataFrame:
-    """pandas' reading of the lines not in ``skip`` (an int: that many first lines; or a set)."""
+def _parse(plan: _Plan, skip, blank_lines: bool, piece: bytes | None = None) -> pd.DataFrame:
+    """pandas' reading of the file's lines not in ``skip`` (an int: that many first lines; or a set),
+    or of the lines of one ``piece`` of it."""
     if len(plan.data) == plan.width:  # one dtype: pandas keeps one block, and to_numpy is a view of it
         dtype = np.float64
     else:
         dtype = {j: (np.float64 if j in plan.data else str) for j in range(plan.width)}
     extra = {} if _PANDAS_EXACT else {"float_precision": "round_trip"}
-    return pd.read_csv(plan.path, sep=plan.delimiter, header=None, names=list(range(plan.width)),
+    if piece is None:
+        source, compression = plan.path, ("gzip" if is_gzip(plan.path) else None)
+    else:
+        source, compression = io.BytesIO(piece), None
+    return pd.read_csv(source, sep=plan.delimiter, header=None, names=list(range(plan.width)),
                        skiprows=skip or None, skip_blank_lines=blank_lines, dtype=dtype, na_filter=False,
-                       engine="c", encoding="utf-8", compression="gzip" if is_gzip(plan.path) else None,
-                       quotechar='"', doublequote=True, **extra)
+                       engine="c", encoding="utf-8", compression=compression, quotechar='"', doublequote=True,
+                       **extra)
 
 
 def _values(plan: _Plan, scan: Scan, skip, blank_lines: bool, n: int):
-    """(values, frame) when pandas' reading is the file's rows, all finite; else (None, the error or None)."""
+    """(values, frame) when pandas' reading is the file's rows, all finite; else (None, its error or None)."""
     try:
         df = _parse(plan, skip, blank_lines)
     except (ValueError, pd.errors.ParserError, UnicodeDecodeError) as e:
@@ -179,58 +185,114 @@ def _row_problem(plan: _Plan, cells: list[str], lineno: int, row: int):
     return None
 
 
+def _line_ok(plan: _Plan, cells: list[str]) -> bool:
+    """A quick yes for a good row (``float`` on each data cell); a no is explained by :func:`_row_problem`."""
+    if len(cells) != plan.width:
+        return False
+    for j in plan.data:
+        c = cells[j]
+        try:
+            v = float(c)
+        except ValueError:
+            return False
+        if v - v != 0 or "_" in c or not c.isascii():  # v - v is nan for nan and +-inf
+            return False
+    return plan.label is None or bool(cells[plan.label].strip())
+
+
+def _lines_of(p) -> list[str] | None:
+    text = p.bytes()
+    try:
+        lines = text.decode("utf-8").split("\n")
+    except UnicodeDecodeError:
+        return None
+    if text.endswith(b"\n"):
+        lines.pop()
+    return lines
+
+
+def _piece_rows(plan: _Plan, p) -> int | None:
+    """The number of rows of a piece that pandas reads cleanly (no blank, comment or quoted line, the
+    right cell count, finite numbers, labels present); None when the piece needs the line-by-line check."""
+    if p.buf.find(b'"', 0, p.end) >= 0 or (plan.header is not None and p.line <= plan.header):
+        return None
+    nl = np.flatnonzero(p.arr == 10)
+    n = len(nl) + (0 if p.buf[p.end - 1] == 10 else 1)
+    if SUSPECT[p.arr[np.concatenate(([0], nl + 1))[:n]]].any():
+        return None
+    d = plan.delimiter
+    if d.isascii() and int(np.count_nonzero(p.arr == ord(d))) != (plan.width - 1) * n:
+        return None
+    try:
+        df = _parse(plan, None, False, piece=p.bytes())
+    except (ValueError, pd.errors.ParserError, UnicodeDecodeError):
+        return None
+    ok = len(df) == n and np.isfinite(df[plan.data].to_numpy(dtype=np.float64)).all()
+    if ok and plan.label is not None:
+        ok = not bool((df[plan.label].str.strip() == "").any())
+    return n if ok else None
+
+
 def _diagnose(plan: _Plan) -> InputError | None:
-    """The first problem of the file in line order, or None when the line-by-line check finds none."""
+    """The first problem of the file in line order, or None when the line-by-line check finds none.
+
+    Pieces that pandas reads cleanly are counted and passed; the others are checked line by line."""
     row = 0
     for p in pieces(plan.path):
-        text = p.bytes()
-        lines = text.split(b"\n")
-        if text.endswith(b"\n"):
-            lines.pop()
-        for k, raw in enumerate(lines):
+        n = _piece_rows(plan, p)
+        if n is not None:
+            row += n
+            continue
+        lines = _lines_of(p)
+        if lines is None:  # a byte that is not UTF-8 in this piece: find its line
+            for k, raw in enumerate(p.bytes().split(b"\n")):
+                try:
+                    raw.decode("utf-8")
+                except UnicodeDecodeError as e:
+                    _, column = where_in_text(raw, e.start)
+                    return InputError(f"{plan.path}, line {p.line + k + 1}, column {column}: byte "
+                                      f"0x{raw[e.start]:02x} is not UTF-8 text (expected a UTF-8 text file)")
+        for k, line in enumerate(lines or []):
             lineno = p.line + k
-            if lineno == plan.header or is_skipped(raw):
+            bare = line.strip(" \t\r")
+            if lineno == plan.header or not bare or bare[0] == "#":
                 continue
-            try:
-                line = raw.decode("utf-8").rstrip("\r")
-            except UnicodeDecodeError as e:
-                _, column = where_in_text(raw, e.start)
-                return InputError(f"{plan.path}, line {lineno + 1}, column {column}: byte 0x{raw[e.start]:02x} "
-                                  "is not UTF-8 text (expected a UTF-8 text file)", row=row)
-            problem = _row_problem(plan, _split(line, plan.delimiter, f"{plan.path}, line {lineno + 1}"),
-                                   lineno + 1, row)
-            if problem is not None:
-                return problem
+            line = line[:-1] if line.endswith("\r") else line
+            where = f"{plan.path}, line {lineno + 1}"
+            cells = line.split(plan.delimiter) if '"' not in line else _split(line, plan.delimiter, where)
+            if not _line_ok(plan, cells):
+                problem = _row_problem(plan, [c.strip() for c in cells], lineno + 1, row)
+                if problem is not None:
+                    return problem
             row += 1
     return None
 
 
 def _read_rows(plan: _Plan, scan: Scan, skipped: list[int]):
     """(values, frame, kept line numbers 1-based) by the fast path, then the careful one."""
-    skip = set(skipped) | ({plan.header} if plan.header is not None else set())
+    header = {plan.header} if plan.header is not None else set()
+    skip = set(skipped) | header
     n = scan.n_lines - len(skip)
     if n == 0:
         raise InputError(f"{plan.path}: no data rows (the file is empty or has only a header)")
-    values, df = _values(plan, scan, len(skip), True, n)  # the skipped lines are all at the top
+    values, got = _values(plan, scan, len(skip), True, n)  # the skipped lines are all at the top
     if values is None:
         full = scan_lines(plan.path, plan.delimiter, None, full=True)
-        again = set(full.skipped) | ({plan.header} if plan.header is not None else set())
-        failure = df
+        again = set(full.skipped) | header
         if again != skip:
             skip, n = again, full.n_lines - len(again)
             if n == 0:
                 raise InputError(f"{plan.path}: no data rows (the file is empty or has only a header)")
-            values, df = _values(plan, full, skip, False, n)
-            failure = df if values is None else None
+            values, got = _values(plan, full, skip, False, n)
         if values is None:
             problem = _diagnose(plan)
             if problem is not None:
                 raise problem from None
-            raise InputError(f"{plan.path}: cannot be read as a table ("
-                             f"{f'{type(failure).__name__}: {failure}' if failure else 'the rows found by the parser differ from the lines'})")
+            why = f"{type(got).__name__}: {got}" if got is not None else "its rows differ from the file's lines"
+            raise InputError(f"{plan.path}: cannot be read as a table (the parser says {why})")
     keep = np.ones(scan.n_lines, dtype=bool)
     keep[sorted(skip)] = False
-    return values, df, np.flatnonzero(keep) + 1
+    return values, got, np.flatnonzero(keep) + 1
 
 
 def read_delimited(path: Path, *, columns=None, labels=None, delimiter: str | None = None,
@@ -252,5 +314,6 @@ def read_delimited(path: Path, *, columns=None, labels=None, delimiter: str | No
             i = int(empty[0])
             raise InputError(f"{path}, line {lines[i]}, column {label + 1} ({names[label]}): empty label cell, "
                              "expected a label", row=i, field=names[label])
-    return Table(values=values, names=[names[j] for j in data], lines=lines, ignored=ignored,
+    del df
+    return Table(values=writable(values), names=[names[j] for j in data], lines=lines, ignored=ignored,
                  labels=label_values, label_name=None if label is None else names[label], path=path, unit="line")

@@ -34,8 +34,8 @@ CHUNK = 1 << 20
 #: a line longer than this (16 MiB) is refused: no table cell is that large
 MAX_LINE_BYTES = 1 << 24
 #: first bytes of a line that may be blank or a comment (then the line is looked at)
-_SUSPECT = np.zeros(256, dtype=bool)
-_SUSPECT[[ord(c) for c in "\n\r\t #"]] = True
+SUSPECT = np.zeros(256, dtype=bool)
+SUSPECT[[ord(c) for c in "\n\r\t #"]] = True
 
 
 @dataclass
@@ -141,7 +141,7 @@ def _skipped_in(p: Piece, full: bool, scan: Scan) -> list[bytes]:
         n_here = len(nl) + (0 if p.buf[p.end - 1] == 10 else 1)
         starts = np.concatenate(([0], nl + 1))[:n_here]
         ends = np.concatenate((nl, [p.end]))[:n_here]
-        for k in np.flatnonzero(_SUSPECT[p.arr[starts]]).tolist():
+        for k in np.flatnonzero(SUSPECT[p.arr[starts]]).tolist():
             body = bytes(p.buf[starts[k]:ends[k]])
             if is_skipped(body):
                 scan.skipped.append(p.line + k)

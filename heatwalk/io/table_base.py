@@ -60,6 +60,17 @@ class Table:
         return f"{self.path}, {self.unit} {int(self.lines[i])}"
 
 
+def writable(values: np.ndarray) -> np.ndarray:
+    """``values`` made writable: a read-only view of a frame this reader made and drops is released to
+    the caller (its base is writable and no one else holds it); otherwise a copy."""
+    if not values.flags.writeable:
+        try:
+            values.flags.writeable = True
+        except ValueError:
+            values = values.copy()
+    return values
+
+
 def position_names(m: int) -> list[str]:
     """Names of the columns of a file without a header line: column_1 ... column_m."""
     return [f"column_{j + 1}" for j in range(m)]
