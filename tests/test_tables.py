@@ -222,6 +222,8 @@ def test_parquet_written_by_pandas(tmp_path):
     t = read_table(tmp_path / "t.parquet", columns=["n", "phi"], labels="residue")
     np.testing.assert_array_equal(t.values, [[3, -60.5], [4, 75.0]])
     assert t.labels.tolist() == ["ALA", "GLY"] and t.unit == "row"
+    classes = read_column(tmp_path / "t.parquet", "n")
+    assert classes.dtype == np.int32 and classes.tolist() == [3, 4]  # stored values, as stored
     with pytest.raises(InputError, match=r"column 1 \(residue\): holds values of type (string|large_string)"):
         read_table(tmp_path / "t.parquet")
     pd.DataFrame({"x": [1.0, None, 2.0]}).to_parquet(tmp_path / "null.parquet", index=False)

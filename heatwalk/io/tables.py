@@ -137,6 +137,9 @@ def write_table(path, data, names=None, *, overwrite: bool = False) -> Path:
     path : output file; ``.csv``, ``.tsv``, ``.parquet`` or ``.npz``
     data : a 2-D array (n, m) with ``names`` (m names), or a dict name -> 1-D array (numbers or text)
     overwrite : replace an existing file (default: refuse)
+
+    Floats are written in full precision (CSV / TSV: the shortest text that reads back to the same
+    double). A NaN is written as ``nan``, which :func:`read_table` refuses in a data column.
     """
     import pandas as pd
 
