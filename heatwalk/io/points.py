@@ -9,7 +9,9 @@ which space it has:
   built from what the file holds (a table's column count, a sequence file's
   alphabet and length) — the file is read once;
 - ``read(path, space, options)`` -> points on a known space (a fitted model's);
-- ``write(path, space, x, options, overwrite)``.
+- ``write(path, space, x, options, overwrite)``;
+- ``check_output(path)`` -> the output format, or InputError for an extension this file kind cannot
+  be written as (call it before any work).
 
 ``options`` are the reading options (``file_options``) plus, for
 ``read_new``, the space-building options (``build_options``).
@@ -20,11 +22,9 @@ from __future__ import annotations
 from pathlib import Path
 
 from heatwalk.errors import InputError
+from heatwalk.io.formats import check_output_format
 from heatwalk.io.sequence_files import read_sequences, write_sequences
 from heatwalk.io.tables import points_from_table, read_table, write_points
-
-#: file suffixes written as plain text (one sequence per line); everything else is FASTA
-TEXT_SUFFIXES = (".txt", ".text")
 
 
 def split_options(space_cls, options: dict) -> tuple[dict, dict]:
@@ -39,12 +39,15 @@ def split_options(space_cls, options: dict) -> tuple[dict, dict]:
 
 
 class TableFiles:
-    """CSV tables of numbers, one point per row (:mod:`heatwalk.io.tables`)."""
+    """Tables of numbers (CSV, TSV, Parquet, NPZ), one point per row (:mod:`heatwalk.io.tables`)."""
+
+    def check_output(self, path):
+        return check_output_format(path, "table")
 
     def read_new(self, path, space_cls, options: dict):
         file_opts, build_opts = split_options(space_cls, options)
         table = read_table(path)
-        space = space_cls.from_table(table[0].shape[1], **file_opts, **build_opts)
+        space = space_cls.from_table(table.values.shape[1], **file_opts, **build_opts)
         return space, points_from_table(path, space, table, **file_opts)
 
     def read(self, path, space, options: dict):
@@ -56,6 +59,9 @@ class TableFiles:
 
 class SequenceFiles:
     """FASTA or one-sequence-per-line text files (:mod:`heatwalk.io.sequence_files`)."""
+
+    def check_output(self, path):
+        return check_output_format(path, "sequences")
 
     @staticmethod
     def _reader_options(options: dict) -> dict:
@@ -75,8 +81,7 @@ class SequenceFiles:
     def write(self, path, space, x, options: dict, overwrite: bool) -> Path:
         if space.alphabet is None:
             raise InputError(f"{space!r} has no alphabet: its samples cannot be written as text", field="alphabet")
-        fmt = "text" if str(path).endswith(TEXT_SUFFIXES) else "fasta"
-        return write_sequences(path, x, space.alphabet, format=fmt, overwrite=overwrite)
+        return write_sequences(path, x, space.alphabet, overwrite=overwrite)
 
 
 FILE_KINDS = {"table": TableFiles(), "sequences": SequenceFiles()}
