@@ -60,9 +60,13 @@ def fixed_coordinates(steps, n):
     print("2. fixed coordinates: psi given phi = -1.1 (data: psi of points with |phi + 1.1| < 0.1)")
     s = model.sample(1000, steps=200, seed=4, progress=False, given={0: -1.1})
     near = x[(wrap(x[:, 0] + 1.1)).abs() < 0.1, 1]
-    q = [0.1, 0.5, 0.9]
-    print(f"   samples: psi quantiles {np.round(np.quantile(s[:, 1].numpy(), q), 2).tolist()}; "
-          f"data: {np.round(np.quantile(near.numpy(), q), 2).tolist()} (n = {near.numel()})")
+    # two folds meet at phi = -1.1: the seam fold (psi near ±π) and the lower fold (psi near -0.6)
+    up_s, up_d = float((s[:, 1].abs() > 1.8).double().mean()), float((near.abs() > 1.8).double().mean())
+    lo_s = s[s[:, 1].abs() < 1.8, 1]
+    lo_d = near[near.abs() < 1.8]
+    print(f"   share in the seam fold: samples {up_s:.2f}, data {up_d:.2f} (n = {near.numel()}); "
+          f"lower fold psi mean/sd: samples {float(lo_s.mean()):.2f}/{float(lo_s.std()):.2f}, "
+          f"data {float(lo_d.mean()):.2f}/{float(lo_d.std()):.2f}")
 
 
 def product(steps, n):

@@ -67,6 +67,10 @@ class Categories(FiniteStateSpace):
         Option("alphabet", str, "the states as a string of symbols (default: those that occur, sorted)"),
         Option("length", int, "required sequence length (default: the first record's)"),
         Option("uppercase", bool, "fold symbols to upper case"),
+        Option("unknown_symbols", str, "symbols outside --alphabet: reject (naming record and column), drop (the "
+               "record) or replace:X (by the symbol X)", default="reject", metavar="POLICY"),
+        Option("stop_symbol", str, "a symbol removed from the end of each record that ends with it (e.g. '*' of "
+               "translated proteins)", metavar="CHAR"),
     )
     build_options = (
         Option("process", str, "the forward chain: absorbing (masking) or uniform", default="absorbing",

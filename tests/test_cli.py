@@ -40,7 +40,7 @@ def test_fit_then_sample_roundtrip(tmp_path, angles_csv, capsys):
                          capsys)
     assert code == 0, err
     rows = list(csv.reader(open(samples)))
-    assert rows[0] == ["angle0", "angle1"] and len(rows) == 41
+    assert rows[0] == ["phi", "psi"] and len(rows) == 41        # the data's column names travel with the model
     vals = np.array(rows[1:], dtype=float)
     assert np.all((vals >= -math.pi) & (vals < math.pi))
     # degrees on the way out
@@ -116,7 +116,7 @@ BAD_MANIFOLD_FILES = [
     # (space, extra flags, file content, expected message)
     ("sphere", [], "0,0,1\n0,0.5,0.5\n", r"line 2: .*norm"),
     ("sphere", [], "0,0,1\n0,0,0\n", r"line 2: .*(zero|norm)"),
-    ("sphere", ["--lonlat"], "10,20\n95,20\n", r"line 2: .*latitude 95"),
+    ("sphere", ["--lonlat"], "20,10\n20,95\n", r"line 2: .*\(latitude\): 95 degrees"),
     ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0,0,0,1,0,0,0,-1\n", r"line 2: .*(reflection|det)"),
     ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0.2,0,0,1,0,0,0,1\n", r"line 2: .*not a rotation matrix"),
     ("so3", ["--rotation-format", "quaternion", "--quaternion-order", "wxyz"], "1,0,0,0\n0,0,0,0\n",
@@ -150,7 +150,7 @@ def test_fit_sample_evaluate_on_the_sphere_with_latlon(tmp_path, capsys):
     lat = np.clip(40 + 10 * rng.standard_normal(200), -89, 89)
     lon = -30 + 20 * rng.standard_normal(200)
     p = tmp_path / "pts.csv"
-    p.write_text("lat,lon\n" + "".join(f"{a},{b}\n" for a, b in zip(lat, lon)))
+    p.write_text("lon,lat\n" + "".join(f"{b},{a}\n" for a, b in zip(lat, lon)))
     code, _, err = run(["fit", str(p), "--space", "sphere", "--lonlat", "--out", str(tmp_path / "m"),
                         "--train-steps", "20", "--hidden", "16", "--quiet"], capsys)
     assert code == 0, err
@@ -158,7 +158,7 @@ def test_fit_sample_evaluate_on_the_sphere_with_latlon(tmp_path, capsys):
                         "--reverse-steps", "10", "--quiet"], capsys)
     assert code == 0, err
     rows = list(csv.reader(open(tmp_path / "s.csv")))
-    assert rows[0] == ["latitude_deg", "longitude_deg"] and len(rows) == 11
+    assert rows[0] == ["lon", "lat"] and len(rows) == 11
     code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--reverse-steps", "10",
                           "--likelihood-points", "5", "--quiet"], capsys)
     assert code == 0, err

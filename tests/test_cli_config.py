@@ -88,7 +88,7 @@ def test_fix_a_coordinate_from_the_command_line(tmp_path, angles_csv, capsys):
                         "20", "--hidden", "16", "--inpainting", "--quiet"], capsys)
     assert code == 0, err
     code, _, err = run(["sample", str(tmp_path / "m"), "--n", "30", "--out", str(tmp_path / "s.csv"),
-                        "--reverse-steps", "10", "--fix", "angle0=0.5", "--quiet"], capsys)
+                        "--reverse-steps", "10", "--fix", "phi=0.5", "--quiet"], capsys)
     assert code == 0, err
     vals = np.loadtxt(tmp_path / "s.csv", delimiter=",", skiprows=1)
     assert np.allclose(vals[:, 0], 0.5, atol=1e-12)
@@ -96,7 +96,7 @@ def test_fix_a_coordinate_from_the_command_line(tmp_path, angles_csv, capsys):
                         "--fix", "omega=1", "--quiet"], capsys)
     assert code == 2 and "'omega' is not a column" in err and not (tmp_path / "t.csv").exists()
     given = tmp_path / "given.csv"
-    given.write_text("angle1\n-1.0\n")
+    given.write_text("psi\n-1.0\n")
     code, _, err = run(["sample", str(tmp_path / "m"), "--n", "10", "--out", str(tmp_path / "g.csv"),
                         "--reverse-steps", "10", "--given", str(given), "--quiet"], capsys)
     assert code == 0, err
@@ -118,3 +118,54 @@ def test_torsions_command_writes_a_table_ready_for_fit(tmp_path, capsys):
     assert np.all(np.abs(phi) <= 180) and not math.isnan(phi.sum())
     code, _, err = run(["torsions", str(tmp_path / "none.pdb"), "--out", str(tmp_path / "x.csv")], capsys)
     assert code == 2 and "no such file" in err and not (tmp_path / "x.csv").exists()
+
+
+def test_wide_table_with_named_columns_labels_and_ignored_columns(tmp_path, capsys):
+    # the case of a torsion table with extra columns: residue names as labels, omega ignored
+    rng = np.random.default_rng(1)
+    p = tmp_path / "wide.csv"
+    rows = ["residue,phi,psi,omega"]
+    for i in range(120):
+        name = ("ALA", "GLY")[i % 2]
+        rows.append(f"{name},{rng.normal(-60, 10):.3f},{rng.normal(-45, 10):.3f},{rng.normal(180, 3):.3f}")
+    p.write_text("\n".join(rows) + "\n")
+    code, out, err = run(["fit", str(p), "--space", "torus", "--degrees", "--columns", "phi,psi", "--labels",
+                          "residue", "--out", str(tmp_path / "m"), "--train-steps", "10", "--hidden", "16",
+                          "--quiet"], capsys)
+    assert code == 0, err
+    assert "Torus(n=2)" in out and "phi, psi -> the 2 coordinates" in out and "ignored      omega" in out
+    assert "2 classes: ALA, GLY" in out
+    code, _, err = run(["sample", str(tmp_path / "m"), "--n", "8", "--out", str(tmp_path / "s.npz"),
+                        "--reverse-steps", "5", "--label", "GLY", "--quiet"], capsys)
+    assert code == 0, err
+    with np.load(tmp_path / "s.npz") as z:                      # written in the format the extension names
+        assert sorted(z.files) == ["phi", "psi"] and np.all(np.abs(z["phi"]) <= 180)   # degrees, as fitted
+    for out_name, message in (("s.xyz", "extension"), ("s.fasta", "extension")):
+        code, _, err = run(["sample", str(tmp_path / "m"), "--n", "8", "--out", str(tmp_path / out_name),
+                            "--quiet"], capsys)
+        assert code == 2 and message in err and not (tmp_path / out_name).exists(), err
+    code, _, err = run(["fit", str(p), "--space", "torus", "--columns", "phi,chi", "--out", str(tmp_path / "m2")],
+                       capsys)
+    assert code == 2 and "chi" in err and err.count("\n") == 1 and not (tmp_path / "m2").exists()
+    code, _, err = run(["fit", str(p), "--space", "torus", "--out", str(tmp_path / "m3")], capsys)
+    assert code == 2 and "residue" in err and not (tmp_path / "m3").exists()      # a text column named
+
+
+def test_readme_simplex_command_with_zero_replacement_and_closure(tmp_path, capsys):
+    # compositions rounded to five decimals with a zero part: the README's command, plus --closure
+    p = tmp_path / "budgets.csv"
+    rng = np.random.default_rng(2)
+    shares = rng.dirichlet([4, 3, 2], 100)
+    shares[0] = [0.6, 0.4, 0.0]
+    p.write_text("food,fuel,other\n" + "".join(f"{a:.5f},{b:.5f},{c:.5f}\n" for a, b, c in shares))
+    code, _, err = run(["fit", str(p), "--space", "simplex", "--zero-replacement", "1e-4", "--closure",
+                        "--out", str(tmp_path / "budget-model"), "--train-steps", "5", "--hidden", "16", "--quiet"],
+                       capsys)
+    assert code == 0, err
+    code, _, err = run(["sample", str(tmp_path / "budget-model"), "--n", "5", "--out", str(tmp_path / "s.csv"),
+                        "--reverse-steps", "5", "--quiet"], capsys)
+    assert code == 0, err
+    header = (tmp_path / "s.csv").read_text().splitlines()[0]
+    assert header == "food,fuel,other"
+    code, _, err = run(["fit", str(p), "--space", "torus", "--lonlat", "--out", str(tmp_path / "x")], capsys)
+    assert code == 2 and "--lonlat does not apply to --space torus" in err

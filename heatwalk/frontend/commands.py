@@ -68,14 +68,19 @@ def cmd_fit(args) -> int:
         return 0
     out = Path(args.out)
     _refuse_existing(out, args.overwrite)
-    space, x = files_for(space_cls).read_new(args.data, space_cls, options)
+    columns = [c.strip() for c in args.columns.split(",")] if args.columns else None
+    space, x, facts = files_for(space_cls).read_new(args.data, space_cls, options, columns=columns,
+                                                    labels=args.labels or None, delimiter=args.delimiter)
     network = {k: v for k, v in (("hidden", args.hidden), ("depth", args.depth)) if v is not None}
+    labels = None if facts["labels"] is None else list(facts["labels"])
     model = heatwalk.fit(space, x, steps=args.train_steps, batch_size=args.batch_size, lr=args.learning_rate,
                          seed=args.seed, network=network, progress=not args.quiet,
                          checkpoint_dir=args.checkpoints, checkpoint_every=args.checkpoint_every,
-                         resume=args.resume, inpainting=args.inpainting, threads=args.threads)
+                         resume=args.resume, inpainting=args.inpainting, threads=args.threads,
+                         labels=labels, label_dropout=args.label_dropout)
     model.record["data_file"] = str(Path(args.data).resolve())
     model.record["reading_options"] = split_options(space_cls, options)[0]
+    model.record.update({k: facts[k] for k in ("columns", "ignored", "label_column") if facts.get(k)})
     model.save(out, overwrite=args.overwrite, extra_files={"fit_config.toml": config_text})
     print(summary(model, out))
     return 0
@@ -87,6 +92,11 @@ def summary(model, folder) -> str:
     lines = [f"heatwalk model in {folder}",
              f"  space        {model.space!r}",
              f"  data         {r.get('n_data', '?')} points from {r.get('data_file', '(Python API)')}"]
+    if r.get("columns"):
+        lines.append(f"  columns      {', '.join(r['columns'])} -> the {len(r['columns'])} coordinates of the space"
+                     + (f"; labels from {r['label_column']}" if r.get("label_column") else ""))
+    if r.get("ignored"):
+        lines.append(f"  ignored      {', '.join(r['ignored'])}")
     if r.get("reading_options"):
         lines.append("  reading      " + ", ".join(f"{k}={v}" for k, v in r["reading_options"].items()))
     if model.classes is not None:
@@ -115,6 +125,14 @@ def cmd_info(args) -> int:
 # ----- sample -----------------------------------------------------------------------------------------
 def _column_names(model, options) -> list[str]:
     return list(model.record.get("columns") or model.space.column_names(**options))
+
+
+def _output_names(model, options):
+    """The model's data column names for written samples when they fit the written columns (else the space's)."""
+    names = model.record.get("columns")
+    if names and len(names) == len(model.space.column_names(**options)):
+        return list(names)
+    return None
 
 
 def _given_from_rows(model, names, rows, options, where) -> dict:
@@ -156,10 +174,12 @@ def _parse_fix(model, fixes, options) -> dict:
 def _parse_given_file(model, path, options) -> dict:
     from heatwalk.io.tables import read_table
 
-    rows, header, _ = read_table(path)
-    if header is None:
+    from heatwalk.io.table_base import position_names
+
+    table = read_table(path)
+    if table.names == position_names(len(table.names)):
         raise InputError(f"{path}: a --given table needs a header naming its columns", field="given")
-    return _given_from_rows(model, header, rows.tolist(), options, str(path))
+    return _given_from_rows(model, table.names, table.values.tolist(), options, str(path))
 
 
 def cmd_sample(args) -> int:
@@ -172,6 +192,7 @@ def cmd_sample(args) -> int:
     out = Path(args.out)
     _refuse_existing(out, args.overwrite)
     model = heatwalk.load(args.model)
+    files_for(model.space).check_output(out)
     options = _file_options(args, model)
     given = {}
     if args.given:
@@ -182,7 +203,8 @@ def cmd_sample(args) -> int:
     x = model.sample(args.n, steps=args.reverse_steps, sampler=args.sampler, seed=args.seed,
                      progress=not args.quiet, label=args.label, guidance=args.guidance, given=given or None,
                      given_method=args.given_method)
-    files_for(model.space).write(out, model.space, x, options, overwrite=args.overwrite)
+    files_for(model.space).write(out, model.space, x, options, overwrite=args.overwrite,
+                                 names=_output_names(model, options))
     print(f"wrote {args.n} samples to {out} in {time.perf_counter() - t0:.1f} s")
     return 0
 
@@ -199,7 +221,8 @@ def cmd_evaluate(args) -> int:
     _require(args, "out")
     _refuse_existing(Path(args.out), args.overwrite)
     model = heatwalk.load(args.model)
-    x = files_for(model.space).read(args.data, model.space, _file_options(args, model))
+    x = files_for(model.space).read(args.data, model.space, _file_options(args, model),
+                                    columns=model.record.get("columns"))
     report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
                                likelihood_points=args.likelihood_points, progress=not args.quiet)
     report["model"] = str(Path(args.model).resolve())

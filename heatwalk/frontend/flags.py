@@ -59,6 +59,9 @@ def fit_flags() -> list[Flag]:
         Flag("config", str, "TOML file with any of these options (flags given here override it)", metavar="FILE"),
         Flag("dry_run", bool, "print the resolved configuration (TOML) and stop, reading and writing nothing"),
         Flag("space", str, "the state space", choices=_spaces()),
+        Flag("columns", str, "data columns by name, in this order (other columns are ignored); default: every "
+             "column but the labels", metavar="NAME,NAME"),
+        Flag("delimiter", str, "cell separator of a text table (default: detected from , tab ; |)", metavar="CHAR"),
         Flag("out", str, "model folder to write", metavar="FOLDER"),
         Flag("overwrite", bool, "replace an existing model folder"),
         Flag("train_steps", int, "training steps (Adam)", default=3000, metavar="N"),

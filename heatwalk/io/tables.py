@@ -188,10 +188,18 @@ def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
         raise e.located(str(path)) from None
 
 
-def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, **options) -> Path:
-    """Write points as a table with a header (format by extension), atomically."""
+def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, names=None, **options) -> Path:
+    """Write points as a table with a header (format by extension), atomically.
+
+    ``names`` replaces the space's column names (e.g. the names of the columns the model was fitted on);
+    it must have one name per written column.
+    """
     check_output_format(path, "table")
     rows = space.to_rows(x, **options)
     header = space.column_names(**options)
+    if names is not None:
+        if len(names) != len(header):
+            raise InputError(f"{path}: {len(names)} column names for {len(header)} columns", field="names")
+        header = list(names)
     return write_table(path, np.asarray(torch.as_tensor(rows).detach().cpu(), dtype=np.float64), header,
                        overwrite=overwrite)
