@@ -106,12 +106,40 @@ class GivenPart:
         return [int(i) for i in self.mask.reshape(-1).nonzero().flatten()]
 
 
-def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
-    """Convert ``x`` to a float64 tensor of shape (n, *ambient_shape), checking shape and finiteness.
+def numeric_table(x, what: str = "points"):
+    """A pandas DataFrame or Series as a float64 numpy array (its columns in order); anything else unchanged.
 
-    Raises :class:`InputError` naming the first row that is NaN or infinite.
+    A column that is not numeric is an :class:`InputError` naming it (select the data columns first,
+    e.g. ``df[["phi", "psi"]]``).
     """
-    t = torch.as_tensor(x, dtype=DTYPE)
+    if not type(x).__module__.startswith("pandas"):
+        return x
+    import numpy as np
+    import pandas as pd
+
+    frame = x.to_frame() if isinstance(x, pd.Series) else x
+    if not isinstance(frame, pd.DataFrame):
+        return x
+    for name in frame.columns:
+        if not pd.api.types.is_numeric_dtype(frame[name]) or pd.api.types.is_bool_dtype(frame[name]):
+            raise InputError(f"{what}: column {name!r} is not numeric ({frame[name].dtype}); select the data "
+                             f"columns first, e.g. df[[...]]", field=str(name))
+    return np.array(frame.to_numpy(dtype=np.float64), copy=True)  # writable: torch refuses read-only memory
+
+
+def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
+    """Convert ``x`` (array, tensor, pandas DataFrame) to a float64 tensor (n, *ambient_shape), checked.
+
+    Raises :class:`InputError` for a wrong shape, no points, a complex or boolean array, and naming the
+    first row that is NaN or infinite.
+    """
+    x = numeric_table(x, what)
+    if isinstance(x, torch.Tensor) and (x.is_complex() or x.dtype == torch.bool):
+        raise InputError(f"{what}: expected real numbers, got a tensor of dtype {x.dtype}")
+    try:
+        t = torch.as_tensor(x, dtype=DTYPE)
+    except (TypeError, ValueError, RuntimeError) as e:
+        raise InputError(f"{what}: cannot be read as an array of real numbers ({type(e).__name__}: {e})") from None
     k = len(ambient_shape)
     if t.dim() == k:
         t = t.unsqueeze(0)
@@ -119,6 +147,8 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
         raise InputError(
             f"{what}: expected shape (n, {', '.join(map(str, ambient_shape))}), got {tuple(t.shape)}"
         )
+    if t.shape[0] == 0:
+        raise InputError(f"{what}: no points (an empty array of shape {tuple(t.shape)})")
     bad = ~torch.isfinite(t.reshape(t.shape[0], -1)).all(dim=1)
     if bool(bad.any()):
         i = int(bad.nonzero()[0, 0])

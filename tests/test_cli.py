@@ -200,7 +200,8 @@ def test_sequences_fit_sample_evaluate(tmp_path, capsys):
 
 @pytest.mark.parametrize("content, flags, message", [
     (">a\nACGT\n>b\nACXT\n", ["--alphabet", "ACGT"], r"record 2, column 3: unknown symbol 'X'"),
-    (">a\nACGT\n>b\nACG\n", [], r"length"),
+    # records of different lengths are a variable-length model now; one longer than --length is refused
+    (">a\nACGT\n>b\nACGTA\n", ["--length", "4"], r"length 5, longer than the maximum 4"),
     (">a\nACGT\n>b\n\n>c\nACGT\n", [], r"empty"),
     (">a\nAAAA\n>b\nAAAA\n", [], r"at least 2|K"),
 ])

@@ -25,7 +25,31 @@ from pathlib import Path
 
 from heatwalk.errors import InputError
 from heatwalk.io.formats import check_output_format
-from heatwalk.io.sequence_files import read_sequences, write_sequences
+from heatwalk.io.sequence_files import read_records, write_records
+from heatwalk.spaces.alphabet import check_alphabet, encode_strings
+
+
+def recs_alphabet(recs, opts: dict) -> list[str]:
+    """The alphabet of records read with ``opts``: the given one, else the sorted symbols that occur."""
+    if opts.get("alphabet") is not None:
+        symbols = [c.upper() for c in opts["alphabet"]] if opts.get("uppercase") else list(opts["alphabet"])
+    else:
+        symbols = sorted(set("".join(recs.sequences)))
+    if len(symbols) < 2:
+        raise InputError(f"the alphabet has {len(symbols)} symbol(s) {''.join(symbols)!r}; a categorical model "
+                         "needs at least 2", field="alphabet")
+    return check_alphabet(symbols, len(symbols))
+
+
+def encode_records(recs, space, where: str):
+    """Codes (n, L) of the records on ``space`` (padded with the end state of a variable-length space)."""
+    lengths = recs.lengths
+    if space.end_state is None and bool((lengths != space.L).any()):
+        i = int((lengths != space.L).nonzero()[0][0])
+        raise InputError(f"{where}: record {i + 1} ({recs.names[i]!r}) has length {int(lengths[i])}, but the model's "
+                         f"sequences have length {space.L}", row=i, field="length")
+    return space.validate(encode_strings(recs.sequences, space.alphabet, length=space.L, where=where,
+                                         end=space.end_state))
 from heatwalk.io.table_base import position_names
 from heatwalk.io.tables import points_from_table, read_table, write_points
 
@@ -93,19 +117,29 @@ class SequenceFiles:
                              field="columns" if columns is not None else "labels" if labels is not None
                              else "delimiter")
         file_opts, build_opts = split_options(space_cls, options)
-        seqs = read_sequences(path, **self._reader_options(file_opts))
-        facts = {"columns": None, "ignored": [], "labels": None, "label_column": None, "records": len(seqs.names)}
-        return space_cls.from_alphabet(seqs.alphabet, seqs.L, **build_opts), seqs.codes, facts
+        opts = self._reader_options(file_opts)
+        length = opts.pop("length", None)
+        recs = read_records(path, **opts)
+        alphabet = recs_alphabet(recs, opts)
+        lengths = recs.lengths
+        variable = bool((lengths != lengths[0]).any()) or (length is not None and bool((lengths < length).any()))
+        L = int(lengths.max()) if length is None else length
+        space = space_cls.from_alphabet(alphabet, L, variable_length=variable, **build_opts)
+        codes = encode_records(recs, space, str(path))
+        facts = {"columns": None, "ignored": [], "labels": None, "label_column": None, "records": len(recs.names),
+                 "dropped_records": len(recs.dropped), "lengths": [int(lengths.min()), int(lengths.max())]}
+        return space, codes, facts
 
     def read(self, path, space, options: dict, *, columns=None, delimiter=None):
         keep = ("format", "uppercase", "unknown_symbols", "stop_symbol")
         opts = {k: v for k, v in self._reader_options(options).items() if k in keep}
-        return read_sequences(path, alphabet=space.alphabet, length=space.L, **opts).codes
+        recs = read_records(path, alphabet=space.alphabet, **opts)
+        return encode_records(recs, space, str(path))
 
     def write(self, path, space, x, options: dict, overwrite: bool, names=None) -> Path:
         if space.alphabet is None:
             raise InputError(f"{space!r} has no alphabet: its samples cannot be written as text", field="alphabet")
-        return write_sequences(path, x, space.alphabet, overwrite=overwrite)
+        return write_records(path, space.decode(x), overwrite=overwrite)
 
 
 FILE_KINDS = {"table": TableFiles(), "sequences": SequenceFiles()}
