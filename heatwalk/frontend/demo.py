@@ -26,6 +26,7 @@ def cmd_demo(args) -> int:
     train, held_a, held_b = data[:4000], data[4000:5000], data[5000:]
     print("demo: fitting backbone torsions (phi, psi) of the invented 'lanternfold' peptide family on T^2")
     write_points(out / "lanternfold_torsions.csv", space, train, overwrite=True)
+    write_points(out / "heldout.csv", space, data[4000:], overwrite=True)
     model = heatwalk.fit(space, train, steps=args.train_steps, batch_size=512, seed=args.seed, progress=not args.quiet)
     model.save(out / "model", overwrite=True)
     samples = model.sample(2000, steps=args.reverse_steps, sampler="predictor_corrector", seed=args.seed,
