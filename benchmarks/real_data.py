@@ -299,24 +299,30 @@ def main(argv=None):
     ap.add_argument("--out", type=Path, default=None,
                     help="JSON file (default benchmarks/results/real_data.json, or real_data_quick.json)")
     ap.add_argument("--progress", action="store_true", help="show training progress bars")
+    ap.add_argument("--show", nargs="+", type=Path, default=None,
+                    help="print the table of saved result files (rows of several runs together) and exit")
     args = ap.parse_args(argv)
     torch.set_num_threads(1)
     mode = "quick" if args.quick else "full"
     cfg = MODES[mode]
     out = args.out or RESULTS / ("real_data_quick.json" if args.quick else "real_data.json")
+    if args.show:
+        rows = [r for f in args.show for r in json.loads(f.read_text())["rows"]]
+        print(format_table(sorted(rows, key=lambda r: ORDER.index(r["data"]))))
+        return
     rows, t0 = [], time.perf_counter()
-    for name in ORDER:
-        if args.only and name not in args.only:
-            continue
+    names = [n for n in ORDER if not args.only or n in args.only]
+    for name in names:
         rows.append(run_dataset(name, cfg, args.progress))
         print(f"[{name}] done in {rows[-1]['seconds']:.0f} s", file=sys.stderr, flush=True)
+        write_json(out, {"mode": mode, "complete": len(rows) == len(names), "settings": cfg,
+                         "log_prob_options": LOG_PROB_OPTIONS, "seed": SEED, "versions": versions(),
+                         "total_seconds": time.perf_counter() - t0, "rows": rows})
     total = time.perf_counter() - t0
     note = "" if mode == "full" else (" — QUICK: subsampled to <= 3000 train / 400 held-out points, 300 fit "
                                       "steps, k <= 6; not the benchmark's figures")
     print(f"real-data fit quality ({mode} mode{note}; seed {SEED}, torch threads 1, total {total:.0f} s)")
     print(format_table(rows))
-    write_json(out, {"mode": mode, "settings": cfg, "log_prob_options": LOG_PROB_OPTIONS, "seed": SEED,
-                     "versions": versions(), "total_seconds": total, "rows": rows})
     print(f"written {out}")
 
 
