@@ -43,6 +43,7 @@ class Sphere(IsotropicKernel, Manifold):
 
     kind = "sphere"
     file_options = (Option("lonlat", bool, "S^2 as two columns latitude, longitude in degrees"),)
+    plot_kind = "directions"
 
     def __init__(self, d: int = 2):
         self.d = check_positive_int("Sphere: d", d)
