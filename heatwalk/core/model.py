@@ -14,6 +14,7 @@ only tensors and plain containers.
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import torch
@@ -212,10 +213,10 @@ def _read_losses(path: Path, first_step: int) -> torch.Tensor:
         parts = line.split(",")
         try:
             step, value = int(parts[0]), float(parts[1])
-            if len(parts) != 2:
+            if len(parts) != 2 or not math.isfinite(value):
                 raise ValueError
         except (ValueError, IndexError):
-            raise InputError(f"{path}, line {lineno}: expected 'step,loss' (an integer and a number), "
+            raise InputError(f"{path}, line {lineno}: expected 'step,loss' (an integer and a finite number), "
                              f"got {line!r}", row=lineno - 2) from None
         expected = first_step + len(values)
         if step != expected:

@@ -29,8 +29,8 @@ import torch
 
 from heatwalk.checks import check_int, check_number
 from heatwalk.frontend.plots.figures import (
-    DATA_COLOUR, DENSITY_CMAP, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density,
-    log_prob_on, points, render, spread,
+    DATA_COLOUR, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density, density_cmap,
+    density_norm, log_prob_on, points, render, spread,
 )
 
 _RADIAN_TICKS = ([-math.pi, -math.pi / 2, 0.0, math.pi / 2, math.pi], ["−π", "−π/2", "0", "π/2", "π"])
@@ -87,7 +87,8 @@ def model_density(model, n: int, grid: int) -> np.ndarray:
 
 
 def draw_angles(fig, space, data, samples, *, model=None, density=None, columns=None, degrees: bool = True,
-                grid: int = 64, bins: int = 72, smoothing: float = 1.5, max_points: int = 3000) -> None:
+                grid: int = 64, bins: int = 72, smoothing: float = 1.5, color_scale: str = "linear",
+                max_points: int = 3000) -> None:
     """Draw the density of the angles with the data over it (see the module docstring)."""
     check_model_space(model, space)
     data, samples = points(space, data, "data"), points(space, samples, "samples")
@@ -99,6 +100,7 @@ def draw_angles(fig, space, data, samples, *, model=None, density=None, columns=
                             why=f"a pair of {n} angles has a marginal density that a grid of the joint law "
                                 "does not give")
     units = _Units(degrees)
+    density_norm(color_scale, 1.0)  # checks the choice before any work
     pts = {"samples": samples, "data": data, "model": None}[source]
 
     def density_of(cols):
@@ -115,11 +117,12 @@ def draw_angles(fig, space, data, samples, *, model=None, density=None, columns=
         _one_angle(fig.add_subplot(), density_of([0]), units, names[0], how, data, 0, source)
     elif n == 2:
         ax = fig.add_subplot()
-        im = _pair(ax, density_of([0, 1]), units, names, shown, (0, 1))
+        dens = density_of([0, 1])
+        im = _pair(ax, dens, units, names, shown, (0, 1), density_norm(color_scale, dens.max() / units.scale ** 2))
         fig.colorbar(im, ax=ax, label=f"density (1/{units.name}²)")
         ax.set_title(how, fontsize="small")
     else:
-        _all_pairs(fig, n, density_of, units, names, shown, data, how, source)
+        _all_pairs(fig, n, density_of, units, names, shown, data, how, source, color_scale)
 
 
 def _one_angle(ax, dens: np.ndarray, units: _Units, name: str, how: str, data, col: int, source: str,
@@ -138,28 +141,26 @@ def _one_angle(ax, dens: np.ndarray, units: _Units, name: str, how: str, data, c
     ax.legend(loc="upper right", fontsize="small")
 
 
-def _pair(ax, dens: np.ndarray, units: _Units, names, shown, cols, norm=None):
+def _pair(ax, dens: np.ndarray, units: _Units, names, shown, cols, norm, small: bool = False):
     """Heat map of a pair's density (per unit²; x = first angle) with the data drawn over it."""
     extent = [*units.lim, *units.lim]
-    im = ax.imshow(dens.T / units.scale ** 2, origin="lower", extent=extent, cmap=DENSITY_CMAP, norm=norm,
+    im = ax.imshow(dens.T / units.scale ** 2, origin="lower", extent=extent, cmap=density_cmap(), norm=norm,
                    interpolation="nearest", aspect="equal")
     if shown is not None:
-        size = (4.0 if shown.shape[0] < 1000 else 1.5) * (0.5 if norm is not None else 1.0)
+        size = (4.0 if shown.shape[0] < 1000 else 1.5) * (0.5 if small else 1.0)
         ax.scatter(shown[:, cols[0]], shown[:, cols[1]], s=size, lw=0, alpha=0.5, color=OVERLAY_COLOUR,
                    label=f"data ({shown.shape[0]} shown)")
         ax.legend(loc="upper right", fontsize="x-small", markerscale=3, framealpha=0.7)
-    units.axis(ax, "x", names[cols[0]], sparse=norm is not None)
-    units.axis(ax, "y", names[cols[1]], sparse=norm is not None)
+    units.axis(ax, "x", names[cols[0]], sparse=small)
+    units.axis(ax, "y", names[cols[1]], sparse=small)
     return im
 
 
-def _all_pairs(fig, n, density_of, units, names, shown, data, how, source) -> None:
+def _all_pairs(fig, n, density_of, units, names, shown, data, how, source, color_scale) -> None:
     """n × n grid: pair (j, i) below the diagonal, angle i's 1-D density on it; one colour scale."""
-    from matplotlib.colors import Normalize
-
     axes = fig.subplots(n, n, squeeze=False)
     pairs = {(i, j): density_of([j, i]) for i in range(n) for j in range(i)}
-    norm = Normalize(0.0, max(float(d.max()) for d in pairs.values()) / units.scale ** 2)
+    norm = density_norm(color_scale, max(float(d.max()) for d in pairs.values()) / units.scale ** 2)
     im = None
     for i in range(n):
         for j in range(n):
@@ -171,7 +172,7 @@ def _all_pairs(fig, n, density_of, units, names, shown, data, how, source) -> No
                 ax.set_title(names[i], fontsize="small")
                 ax.get_legend().remove()
             else:
-                im = _pair(ax, pairs[(i, j)], units, names, shown, (j, i), norm=norm)
+                im = _pair(ax, pairs[(i, j)], units, names, shown, (j, i), norm, small=True)
                 if ax.get_legend() is not None:
                     ax.get_legend().remove()
     corner = axes[0, n - 1]  # empty: holds the colour bar and the legend in words
@@ -188,6 +189,7 @@ def plot_angles(space, data=None, samples=None, *, model=None, size=None, dpi: i
 
     Options: ``density`` ("model", "samples" or "data"; default samples if given, else the model, else
     the data), ``columns`` (n names for the axes), ``degrees`` (default True), ``grid``, ``bins``,
-    ``smoothing`` (cells), ``max_points`` (data points drawn). ``size`` in pixels.
+    ``smoothing`` (cells), ``color_scale`` ("linear" or "log": four decades below the peak),
+    ``max_points`` (data points drawn). ``size`` in pixels.
     """
     return render("angles", draw_angles, default_size, space, data, samples, model, size, dpi, title, options)

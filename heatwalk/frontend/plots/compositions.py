@@ -26,8 +26,8 @@ import torch
 from heatwalk.checks import check_int
 from heatwalk.errors import InputError
 from heatwalk.frontend.plots.figures import (
-    DATA_COLOUR, DENSITY_CMAP, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density,
-    log_prob_on, points, render, spread,
+    DATA_COLOUR, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density, density_cmap,
+    density_norm, log_prob_on, points, render, spread,
 )
 
 #: the most log-ratio panels drawn without an explicit ``pairs``
@@ -82,7 +82,7 @@ def triangle_histogram(x: np.ndarray, m: int) -> np.ndarray:
 
 
 def draw_compositions(fig, space, data, samples, *, model=None, density=None, columns=None, grid: int = 24,
-                      pairs=None, bins: int = 40, max_points: int = 3000) -> None:
+                      pairs=None, bins: int = 40, color_scale: str = "linear", max_points: int = 3000) -> None:
     """Ternary diagram (K = 3) or log-ratio panels (other K); see the module docstring."""
     check_model_space(model, space)
     names = check_names(columns, space.K, space.column_names(), "parts")
@@ -91,8 +91,9 @@ def draw_compositions(fig, space, data, samples, *, model=None, density=None, co
         if pairs is not None:
             raise InputError("pairs applies to the log-ratio panels of K != 3 parts; K = 3 is a ternary diagram",
                              field="pairs")
+        density_norm(color_scale, 1.0)  # checks the choice before any work
         _ternary(fig.add_subplot(), fig, space, data, samples, model, density, names,
-                 check_int("grid", grid, minimum=2), max_points)
+                 check_int("grid", grid, minimum=2), color_scale, max_points)
         return
     if density is not None:
         raise InputError(f"density applies to the ternary diagram of K = 3 parts; {space!r} is drawn as "
@@ -147,7 +148,8 @@ def _log_ratios(fig, sets, pairs, names, bins: int) -> None:
     axes[0].legend(fontsize="x-small")
 
 
-def _ternary(ax, fig, space, data, samples, model, density, names, m: int, max_points: int) -> None:
+def _ternary(ax, fig, space, data, samples, model, density, names, m: int, color_scale: str,
+             max_points: int) -> None:
     from matplotlib.tri import Triangulation
 
     source = choose_density(density, data=data, samples=samples, model=model)
@@ -160,8 +162,8 @@ def _ternary(ax, fig, space, data, samples, model, density, names, m: int, max_p
         values = triangle_histogram(pts, m)
         how = f"{source} density: histogram of {pts.shape[0]} points over {m * m} equal small triangles"
     xy = ternary_xy(verts)
-    mesh = ax.tripcolor(Triangulation(xy[:, 0], xy[:, 1], tris), facecolors=values, cmap=DENSITY_CMAP,
-                        edgecolors="none", rasterized=True)
+    mesh = ax.tripcolor(Triangulation(xy[:, 0], xy[:, 1], tris), facecolors=values, cmap=density_cmap(),
+                        norm=density_norm(color_scale, float(values.max())), edgecolors="none", rasterized=True)
     fig.colorbar(mesh, ax=ax, label="density relative to the uniform law (1 = uniform)", shrink=0.8)
     _ternary_frame(ax, names)
     if data is not None:
@@ -205,7 +207,8 @@ def plot_compositions(space, data=None, samples=None, *, model=None, size=None, 
 
     Options: ``columns`` (K part names), ``density`` ("model", "samples" or "data"; K = 3 only),
     ``grid`` (ternary: pieces per side), ``pairs`` (log-ratio panels: pairs of part indices or names),
-    ``bins`` (log-ratio histograms), ``max_points`` (data points drawn). ``size`` in pixels.
+    ``bins`` (log-ratio histograms), ``color_scale`` ("linear" or "log"; ternary), ``max_points`` (data
+    points drawn). ``size`` in pixels.
     """
     return render("compositions", draw_compositions, default_size, space, data, samples, model, size, dpi,
                   title, options)

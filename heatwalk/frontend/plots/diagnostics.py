@@ -41,7 +41,7 @@ def plot_losses(model_or_losses, *, window: int | None = None, size=(800, 450), 
     ----------
     model_or_losses : a fitted :class:`heatwalk.Model` (its ``losses``; steps counted from
         ``record["resumed_from_step"] + 1``) or a 1-D sequence of losses (steps 1, 2, …).
-    window : steps in the running mean (default: about 1/50 of the steps, at least 1).
+    window : steps in the running mean (default: 1/20 of the steps, at least 1, at most 200).
     size : (width, height) in pixels.
     """
     values, first, objective = _loss_values(model_or_losses)
@@ -52,7 +52,7 @@ def plot_losses(model_or_losses, *, window: int | None = None, size=(800, 450), 
         i = int(np.flatnonzero(bad)[0])
         raise InputError(f"losses: step {first + i} has a loss of {values[i]}, expected a finite number",
                          row=i, field="losses")
-    window = max(1, values.size // 50) if window is None else check_int("window", window, minimum=1)
+    window = min(200, max(1, values.size // 20)) if window is None else check_int("window", window, minimum=1)
     steps = np.arange(first, first + values.size)
     fig = new_figure(size, dpi)
     ax = fig.add_subplot()

@@ -23,7 +23,8 @@ import torch
 from heatwalk.checks import check_choice, check_int, check_number
 from heatwalk.errors import InputError
 from heatwalk.frontend.plots.figures import (
-    DENSITY_CMAP, OVERLAY_COLOUR, check_model_space, choose_density, log_prob_on, points, render, spread,
+    OVERLAY_COLOUR, density_cmap, check_model_space, choose_density, density_norm, log_prob_on, points, render,
+    spread,
 )
 
 PROJECTIONS = ("mollweide", "hammer")
@@ -76,7 +77,8 @@ def map_axes(fig, spec, projection: str, xlabel: str = "longitude (deg)", ylabel
 
 
 def draw_directions(fig, space, data, samples, *, model=None, density=None, projection: str = "mollweide",
-                    grid: int = 96, bandwidth: float = 6.0, max_points: int = 3000) -> None:
+                    grid: int = 96, bandwidth: float = 6.0, color_scale: str = "linear",
+                    max_points: int = 3000) -> None:
     """Draw the density of directions on S² with the data over it (see the module docstring)."""
     if getattr(space, "d", None) != 2:
         raise InputError(f"the directions picture is a map of S^2; {space!r} has no map", field="space")
@@ -84,6 +86,7 @@ def draw_directions(fig, space, data, samples, *, model=None, density=None, proj
     check_choice("projection", projection, PROJECTIONS)
     grid = check_int("grid", grid, minimum=8)
     bandwidth = check_number("bandwidth (degrees)", bandwidth, minimum=0, open_minimum=True)
+    density_norm(color_scale, 1.0)  # checks the choice before any work
     data, samples = points(space, data, "data"), points(space, samples, "samples")
     source = choose_density(density, data=data, samples=samples, model=model)
     lon_e, lat_e, centres = map_grid(grid)
@@ -96,7 +99,8 @@ def draw_directions(fig, space, data, samples, *, model=None, density=None, proj
         how = (f"{source} density: von Mises–Fisher kernel density of {pts.shape[0]} "
                f"{'samples' if source == 'samples' else 'points'}, bandwidth {bandwidth:g}°")
     ax = map_axes(fig, None, projection)
-    mesh = ax.pcolormesh(lon_e, lat_e, dens, cmap=DENSITY_CMAP, shading="flat", rasterized=True)
+    mesh = ax.pcolormesh(lon_e, lat_e, dens, cmap=density_cmap(), norm=density_norm(color_scale, float(dens.max())),
+                         shading="flat", rasterized=True)
     fig.colorbar(mesh, ax=ax, label=f"density (1/sr; uniform = {1 / (4 * math.pi):.4f})", shrink=0.8)
     if data is not None:
         shown = lon_lat(data[torch.as_tensor(spread(data.shape[0], max_points))].numpy())
@@ -112,7 +116,7 @@ def plot_directions(space, data=None, samples=None, *, model=None, size=None, dp
 
     Options: ``density`` ("model", "samples" or "data"; default samples if given, else the model, else
     the data), ``projection`` ("mollweide" or "hammer"), ``grid`` (longitude cells), ``bandwidth``
-    (degrees), ``max_points`` (data points drawn). ``size`` in pixels.
+    (degrees), ``color_scale`` ("linear" or "log"), ``max_points`` (data points drawn). ``size`` in pixels.
     """
     return render("directions", draw_directions, default_size, space, data, samples, model, size, dpi, title,
                   options)

@@ -165,3 +165,32 @@ class Picture:
 
     draw: Callable
     default_size: Callable
+
+
+#: colour scales of the density heat maps
+COLOR_SCALES = ("linear", "log")
+#: a logarithmic colour scale spans at most this ratio below its largest value
+LOG_RANGE = 1e4
+
+
+def density_norm(color_scale: str, largest: float):
+    """The colour normalisation of a density heat map whose largest value is ``largest``.
+
+    "linear": 0 … largest. "log": largest / 1e4 … largest on a logarithmic scale (cells below, zero
+    ones included, take the lowest colour), so that tails and ridges a few decades below the peak show.
+    """
+    from matplotlib.colors import LogNorm, Normalize
+
+    check_choice("color_scale", color_scale, COLOR_SCALES)
+    top = largest if largest > 0 else 1.0
+    if color_scale == "linear":
+        return Normalize(0.0, top)
+    return LogNorm(top / LOG_RANGE, top, clip=True)
+
+
+def density_cmap():
+    """The heat maps' colour map, with cells a logarithmic scale cannot show (density 0) in its lowest colour."""
+    import matplotlib
+
+    cmap = matplotlib.colormaps[DENSITY_CMAP]
+    return cmap.with_extremes(bad=cmap(0.0), under=cmap(0.0))

@@ -65,6 +65,8 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
 
     ``model`` is not used: the picture shows point sets (give samples drawn from the model).
     """
+    from matplotlib.ticker import MaxNLocator
+
     check_model_space(model, space)
     symbols = symbols_of(space)
     pad = None
@@ -82,7 +84,7 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
     panels = [(name, f) for name, f in freqs.items()]
     if len(freqs) == 2:
         panels.append(("samples − data", freqs["samples"] - freqs["data"]))
-    gs = fig.add_gridspec(2, len(panels), height_ratios=[1.6, 1.0])
+    gs = fig.add_gridspec(2, len(panels), height_ratios=[2.0, 1.0])
     for k, (name, f) in enumerate(panels):
         ax = fig.add_subplot(gs[0, k])
         diff = name.startswith("samples −")
@@ -90,6 +92,7 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
         im = ax.imshow(f, aspect="auto", interpolation="nearest", cmap=DIFFERENCE_CMAP if diff else FREQUENCY_CMAP,
                        vmin=-top if diff else 0.0, vmax=top, extent=(0.5, length + 0.5, space.K - 0.5, -0.5))
         ax.set_yticks(range(space.K), symbols if space.K <= 40 else None, fontsize="small")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_xlabel("position")
         ax.set_ylabel("symbol")
         n = next(c.shape[0] for s, c in sets if s == name) if not diff else None
