@@ -40,6 +40,10 @@ which never test which space they hold):
   ``"coordinates"``  points are vectors of flat coordinates that can be fixed one by
   one, with reconstruction guidance (torus, R^d).
 
+- ``plot_kind``: which picture :mod:`heatwalk.frontend.plots` draws for it
+  (``"angles"``, ``"directions"``, ``"rotations"``, ``"compositions"``,
+  ``"sequences"``, ``"factors"``), or None when it has no picture.
+
 Conventions
 -----------
 - Points are torch tensors of shape ``(..., *ambient_shape)`` (float64 on
@@ -176,6 +180,8 @@ class Space(ABC):
     file_options: ClassVar[tuple[Option, ...]] = ()
     #: options taken when the space is built from a file (besides its shape)
     build_options: ClassVar[tuple[Option, ...]] = ()
+    #: the picture drawn for it by heatwalk.frontend.plots (a key of PLOT_KINDS), or None
+    plot_kind: ClassVar[str | None] = None
     #: largest admissible diffusion time (finite chains: 1, the prior)
     max_time: ClassVar[float] = math.inf
     #: intrinsic dimension (0 for a finite set)

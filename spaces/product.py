@@ -40,6 +40,7 @@ class Product(Space):
     """The product of ``factors`` (any mix of manifolds and finite state spaces); see the module docstring."""
 
     kind = "product"
+    plot_kind = "factors"
     objective_name: ClassVar[str] = "product"
     max_time: ClassVar[float] = 1.0
 

@@ -153,6 +153,7 @@ class Simplex(Manifold):
     """
 
     kind = "simplex"
+    plot_kind = "compositions"
     file_options = (
         Option("zero_replacement", float, "replace parts that are exactly 0 by DELTA (multiplicative replacement)",
                metavar="DELTA"),

@@ -124,6 +124,7 @@ class SO3(IsotropicKernel, Manifold):
     kind = "so3"
     dim = 3
     ambient_shape = (3, 3)
+    plot_kind = "rotations"
     file_options = (
         Option("rotation_format", str, "rotations as 9 matrix entries (row-major), 4 quaternion components or a "
                "rotation vector", default="matrix", choices=FORMATS),

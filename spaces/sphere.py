@@ -44,6 +44,7 @@ class Sphere(IsotropicKernel, Manifold):
     kind = "sphere"
     file_options = (Option("lonlat", bool, "S^2 as two columns longitude, latitude in degrees (in that order; "
                            "right ascension and declination the same way)"),)
+    plot_kind = "directions"
 
     def __init__(self, d: int = 2):
         self.d = check_positive_int("Sphere: d", d)

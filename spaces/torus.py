@@ -32,6 +32,7 @@ class Torus(Manifold):
     kind = "torus"
     file_options = (Option("degrees", bool, "angles are in degrees (default: radians)"),)
     capabilities = frozenset({"angles", "coordinates"})
+    plot_kind = "angles"
 
     def __init__(self, n: int = 1):
         self.n = check_positive_int("Torus: n", n)

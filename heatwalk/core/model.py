@@ -5,6 +5,7 @@ Folder layout written by :meth:`Model.save`::
     MODEL_DIR/
       model.json     space, objective and network configs, training record
       weights.pt     network state dict (tensors only; loaded with weights_only=True)
+      losses.csv     the training loss of every step (columns step, loss), when known
 
 Loading never unpickles code: ``torch.load(..., weights_only=True)`` accepts
 only tensors and plain containers.
@@ -13,6 +14,7 @@ only tensors and plain containers.
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 
 import torch
@@ -30,6 +32,8 @@ from heatwalk.spaces import from_config
 from heatwalk.spaces.base import CAPABILITIES, Space
 
 FORMAT_VERSION = 1
+#: the per-step training losses in a model folder
+LOSSES_NAME = "losses.csv"
 
 
 class Model:
@@ -41,13 +45,17 @@ class Model:
     objective : the training objective (holds the time schedule)
     network : the denoiser, with exponential-moving-average weights
     record : dict of training facts (steps, seed, loss, timings)
+    losses : float64 tensor of the training loss at every step run by ``fit`` (the first is step
+        ``record["resumed_from_step"] + 1``), or None (not known)
     """
 
-    def __init__(self, space: Space, objective, network: nn.Module, record: dict | None = None):
+    def __init__(self, space: Space, objective, network: nn.Module, record: dict | None = None,
+                 losses: torch.Tensor | None = None):
         self.space = space
         self.objective = objective
         self.network = network.eval()
         self.record = dict(record or {})
+        self.losses = None if losses is None else torch.as_tensor(losses, dtype=torch.float64).reshape(-1)
 
     @property
     def field(self):
@@ -165,8 +173,12 @@ class Model:
         with atomic_dir(path, overwrite=overwrite) as tmp:
             (tmp / "model.json").write_text(json.dumps(self.config(), indent=2, sort_keys=True) + "\n")
             torch.save(self.network.state_dict(), tmp / "weights.pt")
+            if self.losses is not None:
+                first = int(self.record.get("resumed_from_step", 0)) + 1
+                rows = "".join(f"{first + k},{v!r}\n" for k, v in enumerate(self.losses.tolist()))
+                (tmp / LOSSES_NAME).write_text("step,loss\n" + rows)
             for name, text in (extra_files or {}).items():
-                if Path(name).name != name or name in ("model.json", "weights.pt"):
+                if Path(name).name != name or name in ("model.json", "weights.pt", LOSSES_NAME):
                     raise InputError(f"extra file name {name!r} must be a plain file name", field="extra_files")
                 (tmp / name).write_text(text)
         return path
@@ -205,4 +217,30 @@ def load(path) -> Model:
     except Exception as e:  # a file that is not a plain tensor archive
         raise InputError(f"{w_path}: cannot be read as plain tensors ({type(e).__name__}: {e})") from None
     net.load_state_dict(state, strict=True)
-    return Model(space, objective, net, cfg.get("record"))
+    record = cfg.get("record") or {}
+    losses_path = path / LOSSES_NAME
+    losses = _read_losses(losses_path, int(record.get("resumed_from_step", 0)) + 1) if losses_path.is_file() else None
+    return Model(space, objective, net, record, losses=losses)
+
+
+def _read_losses(path: Path, first_step: int) -> torch.Tensor:
+    """The loss column of a ``losses.csv`` written by :meth:`Model.save`; steps must run first_step, +1, …"""
+    lines = path.read_text().splitlines()
+    if not lines or lines[0].strip() != "step,loss":
+        raise InputError(f"{path}, line 1: expected the header 'step,loss', got {lines[0] if lines else ''!r}")
+    values = []
+    for lineno, line in enumerate(lines[1:], start=2):
+        parts = line.split(",")
+        try:
+            step, value = int(parts[0]), float(parts[1])
+            if len(parts) != 2 or not math.isfinite(value):
+                raise ValueError
+        except (ValueError, IndexError):
+            raise InputError(f"{path}, line {lineno}: expected 'step,loss' (an integer and a finite number), "
+                             f"got {line!r}", row=lineno - 2) from None
+        expected = first_step + len(values)
+        if step != expected:
+            raise InputError(f"{path}, line {lineno}: step {step}, expected {expected} (steps run on from "
+                             f"resumed_from_step + 1 = {first_step}, one per line)", row=lineno - 2, field="step")
+        values.append(value)
+    return torch.tensor(values, dtype=torch.float64)

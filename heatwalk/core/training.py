@@ -112,7 +112,8 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
         "train_seconds": elapsed,
         "resumed_from_step": start,
     }
-    return Model(space, objective, run.net, record)
+    # the loss of every step run here (step resumed_from_step + 1 onwards), saved as losses.csv by Model.save
+    return Model(space, objective, run.net, record, losses=torch.tensor(losses, dtype=torch.float64))
 
 
 def _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads) -> None:

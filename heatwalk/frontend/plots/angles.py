@@ -1,0 +1,195 @@
+"""Pictures of angles (the torus T^n): a density heat map with the data drawn over it.
+
+- n = 1: the density of the angle as a curve over a histogram of the data;
+- n = 2: one map of the two angles, e.g. the (phi, psi) map of protein backbones, in degrees on
+  [-180, 180]² by default;
+- n ≥ 3: every pair of angles, as the lower triangle of an n × n grid of panels, with the 1-D
+  density of each angle on the diagonal (one colour scale for all pairs).
+
+The density comes from one of (argument ``density``, the panel title says which):
+
+- ``"model"``: exp(``model.log_prob``) at the centres of a ``grid`` × ``grid`` grid of cells
+  (probability-flow ODE, nats w.r.t. arc length per angle); n ≤ 2 only, since for n ≥ 3 a pair's
+  density is a marginal that a grid of the joint law does not give;
+- ``"samples"`` / ``"data"``: a histogram of ``bins`` cells per angle, normalised to a density and
+  smoothed by a Gaussian of ``smoothing`` cells (standard deviation) that wraps around at ±180°
+  (``scipy.ndimage.gaussian_filter``, mode "wrap", so the total mass stays 1).
+
+Densities are shown per unit of the axes: 1/deg^k with ``degrees=True`` (density per rad^k times
+(π/180)^k), else 1/rad^k. Points are always given in radians (heatwalk's convention); ``degrees``
+only chooses the units of the picture.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import torch
+
+from heatwalk.checks import check_int, check_number
+from heatwalk.frontend.plots.figures import (
+    DATA_COLOUR, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density, density_cmap,
+    density_norm, log_prob_on, points, render, spread,
+)
+
+_RADIAN_TICKS = ([-math.pi, -math.pi / 2, 0.0, math.pi / 2, math.pi], ["−π", "−π/2", "0", "π/2", "π"])
+
+
+def default_size(space) -> tuple[int, int]:
+    n = space.n
+    if n == 1:
+        return (800, 450)
+    if n == 2:
+        return (760, 640)
+    return (min(240 * n + 160, 2400), min(230 * n + 80, 2300))
+
+
+class _Units:
+    """Degrees or radians: the factor from radians, the name, and the axis limits and ticks."""
+
+    def __init__(self, degrees: bool):
+        self.degrees = bool(degrees)
+        self.scale = 180.0 / math.pi if degrees else 1.0
+        self.name = "deg" if degrees else "rad"
+        self.lim = (-180.0, 180.0) if degrees else (-math.pi, math.pi)
+
+    def axis(self, ax, which: str, label: str, sparse: bool = False) -> None:
+        """Limits, ticks (every 90° or π/2; only -180, 0, 180 when ``sparse``) and the label with its unit."""
+        set_lim, set_ticks, set_label = ((ax.set_xlim, ax.set_xticks, ax.set_xlabel) if which == "x"
+                                         else (ax.set_ylim, ax.set_yticks, ax.set_ylabel))
+        set_lim(*self.lim)
+        every = slice(None, None, 2) if sparse else slice(None)
+        if self.degrees:
+            set_ticks([-180, -90, 0, 90, 180][every])
+        else:
+            set_ticks(_RADIAN_TICKS[0][every], _RADIAN_TICKS[1][every])
+        set_label(f"{label} ({self.name})")
+
+
+def histogram_density(x: np.ndarray, bins: int, smoothing: float) -> np.ndarray:
+    """Smoothed histogram density (per rad^k) of angles x (m, k), k = 1 or 2, on [-π, π)^k: shape (bins,)*k."""
+    edges = np.linspace(-math.pi, math.pi, bins + 1)
+    counts, _ = np.histogramdd(x, bins=[edges] * x.shape[1])
+    density = counts / (x.shape[0] * (2 * math.pi / bins) ** x.shape[1])
+    if smoothing > 0:
+        from scipy.ndimage import gaussian_filter
+
+        density = gaussian_filter(density, sigma=smoothing, mode="wrap")
+    return density
+
+
+def model_density(model, n: int, grid: int) -> np.ndarray:
+    """exp(model.log_prob) per rad^n at the centres of grid^n cells of [-π, π)^n (n = 1, 2): shape (grid,)*n."""
+    centres = -math.pi + (torch.arange(grid, dtype=torch.float64) + 0.5) * (2 * math.pi / grid)
+    mesh = torch.stack(torch.meshgrid(*[centres] * n, indexing="ij"), -1).reshape(-1, n)
+    return np.exp(log_prob_on(model, mesh)).reshape((grid,) * n)
+
+
+def draw_angles(fig, space, data, samples, *, model=None, density=None, columns=None, degrees: bool = True,
+                grid: int = 64, bins: int = 72, smoothing: float = 1.5, color_scale: str = "linear",
+                max_points: int = 3000) -> None:
+    """Draw the density of the angles with the data over it (see the module docstring)."""
+    check_model_space(model, space)
+    data, samples = points(space, data, "data"), points(space, samples, "samples")
+    n = space.n
+    names = check_names(columns, n, space.column_names(), "angles")
+    grid, bins = check_int("grid", grid, minimum=4), check_int("bins", bins, minimum=4)
+    smoothing = check_number("smoothing", smoothing, minimum=0)
+    source = choose_density(density, data=data, samples=samples, model=model, model_ok=n <= 2,
+                            why=f"a pair of {n} angles has a marginal density that a grid of the joint law "
+                                "does not give")
+    units = _Units(degrees)
+    density_norm(color_scale, 1.0)  # checks the choice before any work
+    pts = {"samples": samples, "data": data, "model": None}[source]
+
+    def density_of(cols):
+        if source == "model":
+            return model_density(model, len(cols), grid)
+        return histogram_density(pts[:, cols].numpy(), bins, smoothing)
+
+    m = None if pts is None else pts.shape[0]
+    how = (f"model density exp(log_prob) on a {grid}-cell grid per angle" if source == "model" else
+           f"{source} density: histogram of {m} {'samples' if source == 'samples' else 'points'}, "
+           f"{bins} bins per angle, smoothed σ = {smoothing:g} bin")
+    shown = None if data is None else data[torch.as_tensor(spread(data.shape[0], max_points))].numpy() * units.scale
+    if n == 1:
+        _one_angle(fig.add_subplot(), density_of([0]), units, names[0], how, data, 0, source)
+    elif n == 2:
+        ax = fig.add_subplot()
+        dens = density_of([0, 1])
+        im = _pair(ax, dens, units, names, shown, (0, 1), density_norm(color_scale, dens.max() / units.scale ** 2))
+        fig.colorbar(im, ax=ax, label=f"density (1/{units.name}²)")
+        ax.set_title(how, fontsize="small")
+    else:
+        _all_pairs(fig, n, density_of, units, names, shown, data, how, source, color_scale)
+
+
+def _one_angle(ax, dens: np.ndarray, units: _Units, name: str, how: str, data, col: int, source: str,
+               sparse: bool = False) -> None:
+    """A density curve (per unit) over the histogram of the data's angle ``col``."""
+    k = dens.shape[0]
+    centres = (-math.pi + (np.arange(k) + 0.5) * 2 * math.pi / k) * units.scale
+    if data is not None:
+        ax.hist(data[:, col].numpy() * units.scale, bins=48, range=units.lim, density=True, color=DATA_COLOUR,
+                alpha=0.35, label=f"data (n={data.shape[0]})")
+    ax.plot(centres, dens / units.scale, color=SAMPLES_COLOUR, lw=2, label=f"{source} density")
+    units.axis(ax, "x", name, sparse=sparse)
+    ax.set_ylabel(f"density (1/{units.name})")
+    ax.set_ylim(bottom=0)
+    ax.set_title(how, fontsize="small")
+    ax.legend(loc="upper right", fontsize="small")
+
+
+def _pair(ax, dens: np.ndarray, units: _Units, names, shown, cols, norm, small: bool = False):
+    """Heat map of a pair's density (per unit²; x = first angle) with the data drawn over it."""
+    extent = [*units.lim, *units.lim]
+    im = ax.imshow(dens.T / units.scale ** 2, origin="lower", extent=extent, cmap=density_cmap(), norm=norm,
+                   interpolation="nearest", aspect="equal")
+    if shown is not None:
+        size = (4.0 if shown.shape[0] < 1000 else 1.5) * (0.5 if small else 1.0)
+        ax.scatter(shown[:, cols[0]], shown[:, cols[1]], s=size, lw=0, alpha=0.5, color=OVERLAY_COLOUR,
+                   label=f"data ({shown.shape[0]} shown)")
+        ax.legend(loc="upper right", fontsize="x-small", markerscale=3, framealpha=0.7)
+    units.axis(ax, "x", names[cols[0]], sparse=small)
+    units.axis(ax, "y", names[cols[1]], sparse=small)
+    return im
+
+
+def _all_pairs(fig, n, density_of, units, names, shown, data, how, source, color_scale) -> None:
+    """n × n grid: pair (j, i) below the diagonal, angle i's 1-D density on it; one colour scale."""
+    axes = fig.subplots(n, n, squeeze=False)
+    pairs = {(i, j): density_of([j, i]) for i in range(n) for j in range(i)}
+    norm = density_norm(color_scale, max(float(d.max()) for d in pairs.values()) / units.scale ** 2)
+    im = None
+    for i in range(n):
+        for j in range(n):
+            ax = axes[i, j]
+            if j > i:
+                ax.set_axis_off()
+            elif j == i:
+                _one_angle(ax, density_of([i]), units, names[i], "", data, i, source, sparse=True)
+                ax.set_title(names[i], fontsize="small")
+                ax.get_legend().remove()
+            else:
+                im = _pair(ax, pairs[(i, j)], units, names, shown, (j, i), norm, small=True)
+                if ax.get_legend() is not None:
+                    ax.get_legend().remove()
+    corner = axes[0, n - 1]  # empty: holds the colour bar and the legend in words
+    cax = corner.inset_axes([0.05, 0.25, 0.9, 0.1])
+    fig.colorbar(im, cax=cax, orientation="horizontal", label=f"density of each pair (1/{units.name}²)")
+    note = "" if data is None else f"\nred dots: data ({shown.shape[0]} shown)\nbars: histograms of the data"
+    words = how.replace(": ", ":\n", 1) + note + f"\ncurves: {source} density"
+    corner.text(0.0, 1.0, words, ha="left", va="top", fontsize="small", transform=corner.transAxes)
+
+
+def plot_angles(space, data=None, samples=None, *, model=None, size=None, dpi: int = 100, title: str = "",
+                **options):
+    """A Figure of the density of angles on a torus with the data over it (module docstring).
+
+    Options: ``density`` ("model", "samples" or "data"; default samples if given, else the model, else
+    the data), ``columns`` (n names for the axes), ``degrees`` (default True), ``grid``, ``bins``,
+    ``smoothing`` (cells), ``color_scale`` ("linear" or "log": four decades below the peak),
+    ``max_points`` (data points drawn). ``size`` in pixels.
+    """
+    return render("angles", draw_angles, default_size, space, data, samples, model, size, dpi, title, options)

@@ -1,0 +1,131 @@
+"""Pictures of sequences (Categories): per-position symbol frequencies and the length distribution.
+
+Top row: heat maps of the frequency of each symbol (rows, named by the space's alphabet, or the state
+codes 0 … K-1 without one) at each position (columns, 1-based) for the data, for the samples, and
+their difference samples − data. A frequency at position l is taken over the sequences that reach
+position l. Bottom: the distribution of sequence lengths.
+
+Points may be state codes (n, L) on the space, or strings over its alphabet of any lengths (as
+records are read from FASTA files). A sequence's length is its number of symbols; with
+``pad_symbol`` (a symbol of the alphabet, e.g. "-"), a trailing run of that symbol is padding and is
+not counted (nor drawn in the frequencies). Without it every code sequence has length L.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import torch
+
+from heatwalk.errors import InputError
+from heatwalk.frontend.plots.figures import DATA_COLOUR, SAMPLES_COLOUR, check_model_space, points, render
+
+FREQUENCY_CMAP, DIFFERENCE_CMAP = "Blues", "RdBu_r"
+
+
+def default_size(space) -> tuple[int, int]:
+    return (min(1500, max(1000, 3 * 14 * space.L + 300)), min(1100, max(620, 18 * space.K + 380)))
+
+
+def symbols_of(space) -> list[str]:
+    return list(space.alphabet) if space.alphabet is not None else [str(k) for k in range(space.K)]
+
+
+def padded_codes(space, x, what: str, pad: int | None) -> np.ndarray:
+    """Codes (n, Lmax) with -1 past each sequence's end, from codes on ``space`` or strings over its alphabet."""
+    if isinstance(x, (list, tuple)) and x and all(isinstance(s, str) for s in x):
+        if space.alphabet is None:
+            raise InputError(f"{what}: strings need a space with an alphabet; {space!r} has none", field=what)
+        index = {s: k for k, s in enumerate(space.alphabet)}
+        out = np.full((len(x), max(len(s) for s in x)), -1, dtype=np.int64)
+        for i, s in enumerate(x):
+            for j, c in enumerate(s):
+                if c not in index:
+                    raise InputError(f"{what}: sequence {i + 1}, position {j + 1}: unknown symbol {c!r} (alphabet "
+                                     f"{''.join(space.alphabet)!r})", row=i, field=what)
+                out[i, j] = index[c]
+    else:
+        out = points(space, x, what).numpy().astype(np.int64)
+    if pad is not None:
+        trailing = np.flip(np.logical_and.accumulate(np.flip((out == pad) | (out < 0), 1), 1), 1)
+        out = np.where(trailing, -1, out)
+    return out
+
+
+def frequencies(codes: np.ndarray, K: int, length: int) -> np.ndarray:
+    """Frequency of each state (rows) at each position (columns) among sequences reaching it: (K, length)."""
+    counts = np.zeros((K, length))
+    for k in range(K):
+        counts[k, : codes.shape[1]] = (codes == k).sum(0)
+    reach = counts.sum(0)
+    return np.divide(counts, reach, out=np.full_like(counts, np.nan), where=reach > 0)
+
+
+def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | None = None) -> None:
+    """Per-position symbol frequencies of data and samples, their difference, and the lengths (module docstring).
+
+    ``model`` is not used: the picture shows point sets (give samples drawn from the model).
+    """
+    from matplotlib.ticker import MaxNLocator
+
+    check_model_space(model, space)
+    symbols = symbols_of(space)
+    pad = None
+    if pad_symbol is not None:
+        if pad_symbol not in symbols:
+            raise InputError(f"pad_symbol {pad_symbol!r} is not a symbol of the alphabet {''.join(symbols)!r}",
+                             field="pad_symbol")
+        pad = symbols.index(pad_symbol)
+    sets = [(name, padded_codes(space, x, name, pad)) for name, x in (("data", data), ("samples", samples))
+            if x is not None]
+    if not sets:
+        raise InputError("the sequences picture draws point sets: give data or samples", field="data")
+    length = max(c.shape[1] for _, c in sets)
+    freqs = {name: frequencies(c, space.K, length) for name, c in sets}
+    panels = [(name, f) for name, f in freqs.items()]
+    if len(freqs) == 2:
+        panels.append(("samples − data", freqs["samples"] - freqs["data"]))
+    gs = fig.add_gridspec(2, len(panels), height_ratios=[2.0, 1.0])
+    for k, (name, f) in enumerate(panels):
+        ax = fig.add_subplot(gs[0, k])
+        diff = name.startswith("samples −")
+        top = max(float(np.nanmax(np.abs(f))), 1e-3) if diff else 1.0
+        im = ax.imshow(f, aspect="auto", interpolation="nearest", cmap=DIFFERENCE_CMAP if diff else FREQUENCY_CMAP,
+                       vmin=-top if diff else 0.0, vmax=top, extent=(0.5, length + 0.5, space.K - 0.5, -0.5))
+        ax.set_yticks(range(space.K), symbols if space.K <= 40 else None, fontsize="small")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        ax.set_xlabel("position")
+        ax.set_ylabel("symbol")
+        n = next(c.shape[0] for s, c in sets if s == name) if not diff else None
+        ax.set_title(f"{name} (n={n})" if n is not None else name, fontsize="small")
+        fig.colorbar(im, ax=ax, label="difference in frequency" if diff else "frequency", shrink=0.9)
+    _lengths(fig.add_subplot(gs[1, :]), sets)
+
+
+def _lengths(ax, sets) -> None:
+    """Fractions of sequences of each length, one bar group per length."""
+    lengths = {name: (c >= 0).sum(1) for name, c in sets}
+    lo = min(int(v.min()) for v in lengths.values())
+    hi = max(int(v.max()) for v in lengths.values())
+    values = np.arange(lo, hi + 1)
+    width = 0.8 / len(sets)
+    for k, (name, v) in enumerate(lengths.items()):
+        frac = np.bincount(v - lo, minlength=values.size) / v.size
+        ax.bar(values + (k - (len(sets) - 1) / 2) * width, frac, width=width, label=f"{name} (n={v.size})",
+               color=DATA_COLOUR if name == "data" else SAMPLES_COLOUR, alpha=0.8)
+    ax.set_xlabel("sequence length (symbols)")
+    ax.set_ylabel("fraction of sequences")
+    ax.set_title("sequence lengths", fontsize="small")
+    if values.size <= 30:
+        ax.set_xticks(values)
+    ax.set_xlim(lo - 1, hi + 1)
+    ax.legend(fontsize="small")
+
+
+def plot_sequences(space, data=None, samples=None, *, model=None, size=None, dpi: int = 100, title: str = "",
+                   **options):
+    """A Figure of per-position symbol frequencies (data, samples, difference) and lengths (module docstring).
+
+    Options: ``pad_symbol`` (a trailing run of it is padding, not counted in lengths). ``size`` in pixels.
+    """
+    return render("sequences", draw_sequences, default_size, space, data, samples, model, size, dpi, title,
+                  options)
