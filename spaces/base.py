@@ -56,6 +56,7 @@ from abc import ABC, abstractmethod
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
+import numpy as np
 import torch
 
 from heatwalk.errors import InputError
@@ -106,12 +107,40 @@ class GivenPart:
         return [int(i) for i in self.mask.reshape(-1).nonzero().flatten()]
 
 
-def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
-    """Convert ``x`` to a float64 tensor of shape (n, *ambient_shape), checking shape and finiteness.
+def real_tensor(x, what: str = "points", dtype: torch.dtype | None = DTYPE, expected: str = "real numbers"
+                ) -> torch.Tensor:
+    """``x`` (a tensor, a numpy array or nested lists) as a tensor of real numbers, converted to ``dtype``
+    (None: keep an integer or float dtype as it is).
 
-    Raises :class:`InputError` naming the first row that is NaN or infinite.
+    Refuses with :class:`InputError` booleans, complex numbers and anything that is not an array of numbers
+    (strings, ragged lists, Python integers beyond 64 bits). Lists are read through numpy, so Python floats
+    keep their 64 bits.
     """
-    t = torch.as_tensor(x, dtype=DTYPE)
+    if isinstance(x, torch.Tensor):
+        t = x
+    else:
+        try:
+            a = np.asarray(x)
+        except (ValueError, TypeError) as e:
+            raise InputError(f"{what}: expected an array of numbers, got {type(x).__name__} ({e})") from None
+        if a.dtype.kind not in "biufc":
+            raise InputError(f"{what}: expected an array of numbers, got {type(x).__name__} of {a.dtype} "
+                             f"(text or mixed entries?)")
+        if a.dtype.kind == "u" and a.dtype.itemsize == 8:
+            a = a.astype(np.float64) if a.size and int(a.max()) >= 2**63 else a.astype(np.int64)
+        t = torch.as_tensor(a)
+    if t.dtype == torch.bool or t.is_complex():
+        raise InputError(f"{what}: expected {expected}, got dtype {str(t.dtype).replace('torch.', '')}")
+    return t if dtype is None or t.dtype == dtype else t.to(dtype)
+
+
+def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
+    """Convert ``x`` to a float64 tensor of shape (n, *ambient_shape), checking type, shape and finiteness.
+
+    Raises :class:`InputError` for booleans, complex numbers and non-numbers, an empty batch ("no points"),
+    a wrong shape, or naming the first row that is NaN or infinite.
+    """
+    t = real_tensor(x, what)
     k = len(ambient_shape)
     if t.dim() == k:
         t = t.unsqueeze(0)
@@ -119,6 +148,8 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
         raise InputError(
             f"{what}: expected shape (n, {', '.join(map(str, ambient_shape))}), got {tuple(t.shape)}"
         )
+    if t.shape[0] == 0:
+        raise InputError(f"{what}: no points (an empty batch of shape {tuple(t.shape)})")
     bad = ~torch.isfinite(t.reshape(t.shape[0], -1)).all(dim=1)
     if bool(bad.any()):
         i = int(bad.nonzero()[0, 0])
@@ -207,7 +238,10 @@ class Space(ABC):
     def from_rows(self, rows, **options) -> torch.Tensor:
         """Turn an (n, n_columns) float array read from a file into validated points."""
         self.check_file_options(options)
-        rows = torch.as_tensor(rows, dtype=DTYPE)
+        rows = real_tensor(rows, "rows")
+        if rows.dim() != 2 or rows.shape[1] != self.n_columns:
+            raise InputError(f"rows: expected a table of shape (n, {self.n_columns}) for {self!r}, got "
+                             f"{tuple(rows.shape)}")
         return self.validate(rows.reshape(rows.shape[0], *self.ambient_shape))
 
     def to_rows(self, x: torch.Tensor, **options) -> torch.Tensor:
