@@ -3,6 +3,7 @@
 import json
 import os
 import pickle
+import stat
 import struct
 
 import pytest
@@ -41,6 +42,11 @@ def _one_line(e):
 
 def test_weights_are_written_as_safetensors_without_pickle(folder, model):
     assert sorted(os.listdir(folder)) == ["model.json", "weights.safetensors"]
+    umask = os.umask(0)
+    os.umask(umask)
+    for name in ("model.json", "weights.safetensors"):  # the umask's modes, as open() gives (POSIX)
+        assert stat.S_IMODE(os.stat(folder / name).st_mode) == 0o666 & ~umask, name
+    assert stat.S_IMODE(os.stat(folder).st_mode) == 0o777 & ~umask
     raw = (folder / "weights.safetensors").read_bytes()
     # the safetensors layout (its published specification): u64 little-endian header length N, N bytes of
     # JSON {name: {dtype, shape, data_offsets}}, then the tensor bytes; parsed here without the library
