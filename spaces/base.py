@@ -107,6 +107,27 @@ class GivenPart:
         return [int(i) for i in self.mask.reshape(-1).nonzero().flatten()]
 
 
+def numeric_table(x, what: str = "points"):
+    """A pandas DataFrame or Series as a float64 numpy array (its columns in order); anything else unchanged.
+
+    A column that is not numeric is an :class:`InputError` naming it (select the data columns first,
+    e.g. ``df[["phi", "psi"]]``).
+    """
+    if not type(x).__module__.startswith("pandas"):
+        return x
+    import numpy as np
+    import pandas as pd
+
+    frame = x.to_frame() if isinstance(x, pd.Series) else x
+    if not isinstance(frame, pd.DataFrame):
+        return x
+    for name in frame.columns:
+        if not pd.api.types.is_numeric_dtype(frame[name]) or pd.api.types.is_bool_dtype(frame[name]):
+            raise InputError(f"{what}: column {name!r} is not numeric ({frame[name].dtype}); select the data "
+                             f"columns first, e.g. df[[...]]", field=str(name))
+    return np.array(frame.to_numpy(dtype=np.float64), copy=True)  # writable: torch refuses read-only memory
+
+
 def real_tensor(x, what: str = "points", dtype: torch.dtype | None = DTYPE, expected: str = "real numbers"
                 ) -> torch.Tensor:
     """``x`` (a tensor, a numpy array or nested lists) as a tensor of real numbers, converted to ``dtype``
@@ -137,10 +158,11 @@ def real_tensor(x, what: str = "points", dtype: torch.dtype | None = DTYPE, expe
 def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
     """Convert ``x`` to a float64 tensor of shape (n, *ambient_shape), checking type, shape and finiteness.
 
-    Raises :class:`InputError` for booleans, complex numbers and non-numbers, an empty batch ("no points"),
-    a wrong shape, or naming the first row that is NaN or infinite.
+    ``x`` may be an array, a tensor, nested lists or a pandas DataFrame. Raises :class:`InputError` for
+    booleans, complex numbers and non-numbers, an empty batch ("no points"), a wrong shape, or naming the
+    first row that is NaN or infinite.
     """
-    t = real_tensor(x, what)
+    t = real_tensor(numeric_table(x, what), what)
     k = len(ambient_shape)
     if t.dim() == k:
         t = t.unsqueeze(0)
@@ -149,7 +171,7 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
             f"{what}: expected shape (n, {', '.join(map(str, ambient_shape))}), got {tuple(t.shape)}"
         )
     if t.shape[0] == 0:
-        raise InputError(f"{what}: no points (an empty batch of shape {tuple(t.shape)})")
+        raise InputError(f"{what}: no points (an empty array of shape {tuple(t.shape)})")
     bad = ~torch.isfinite(t.reshape(t.shape[0], -1)).all(dim=1)
     if bool(bad.any()):
         i = int(bad.nonzero()[0, 0])

@@ -62,6 +62,19 @@ class Categories(FiniteStateSpace):
         stationary law); saved in :meth:`config`.
     alphabet : optional K distinct one-character symbols naming the states (saved with the model so
         samples can be written as text); state k is ``alphabet[k]``.
+    variable_length : sequences of lengths 1 … L (see below).
+
+    Variable lengths
+    ----------------
+    With ``variable_length=True`` a sequence shorter than L is padded to L with an extra *end* state,
+    index ``end_state`` = the number of symbols, so the space has K + 1 data states (``self.K``
+    counts it; ``n_symbols`` does not). A valid point has at least one symbol and, after its first
+    end state, only end states. Why an end state rather than a separate law of the length: the
+    length becomes part of the sequence, so the one chain, objective, network and samplers model it
+    jointly with the symbols, with no extra machinery, and the likelihood is that of the sequence and
+    its length together (the model may give some mass to padded sequences with a symbol after an end
+    state; on valid sequences its likelihood is then a lower bound). ``decode`` reads a sample up to
+    its first end state.
     """
 
     kind = "categories"
@@ -70,15 +83,27 @@ class Categories(FiniteStateSpace):
         Option("alphabet", str, "the states as a string of symbols (default: those that occur, sorted)"),
         Option("length", int, "required sequence length (default: the first record's)"),
         Option("uppercase", bool, "fold symbols to upper case"),
+        Option("unknown_symbols", str, "symbols outside --alphabet: reject (naming record and column), drop (the "
+               "record) or replace:X (by the symbol X)", default="reject", metavar="POLICY"),
+        Option("stop_symbol", str, "a symbol removed from the end of each record that ends with it (e.g. '*' of "
+               "translated proteins)", metavar="CHAR"),
     )
     build_options = (
         Option("process", str, "the forward chain: absorbing (masking) or uniform", default="absorbing",
                choices=("absorbing", "uniform")),
     )
 
-    def __init__(self, K: int, L: int, process: str | None = None, rates=None, alphabet=None):
+    def __init__(self, K: int, L: int, process: str | None = None, rates=None, alphabet=None,
+                 variable_length: bool = False):
         check_int("Categories: K (number of states)", K, minimum=2, maximum=MAX_STATES)
         check_positive_int("Categories: L (sequence length)", L)
+        if not isinstance(variable_length, bool):
+            raise InputError(f"Categories: variable_length must be True or False, got {variable_length!r}",
+                             field="variable_length")
+        self.n_symbols, self.variable_length = K, variable_length
+        self.end_state = K if variable_length else None
+        alphabet = check_alphabet(alphabet, K)
+        K = K + 1 if variable_length else K
         if process is None:
             # absorbing (masking) by default: on every source we measured its ELBO is far tighter than the
             # uniform chain's after the same training (benchmarks/discrete_elbo.py)
@@ -89,7 +114,7 @@ class Categories(FiniteStateSpace):
                              f"(got process={process!r}, rates {'given' if rates is not None else 'missing'})",
                              field="rates")
         self.K, self.L, self.process = K, L, process
-        self.alphabet = check_alphabet(alphabet, K)
+        self.alphabet = alphabet
         self._rates = None
         if process == "uniform":
             self.chain = CTMC.uniform(K)
@@ -107,28 +132,51 @@ class Categories(FiniteStateSpace):
         self.stationary = self.chain.stationary      # the prior law of one position
         self.ambient_shape = (L,)
 
+    @property
+    def capabilities(self) -> frozenset[str]:
+        return super().capabilities | ({"variable_length"} if self.variable_length else set())
+
     @classmethod
-    def from_alphabet(cls, alphabet, length: int, **build_options) -> "Categories":
-        """The space of sequences of ``length`` symbols of ``alphabet`` read from a file."""
-        return cls(len(alphabet), length, alphabet="".join(alphabet), **build_options)
+    def from_alphabet(cls, alphabet, length: int, variable_length: bool = False, **build_options) -> "Categories":
+        """The space of sequences of (at most, with ``variable_length``) ``length`` symbols of ``alphabet``."""
+        return cls(len(alphabet), length, alphabet="".join(alphabet), variable_length=variable_length,
+                   **build_options)
 
     def config(self) -> dict:
-        return {"kind": "categories", "K": self.K, "L": self.L, "process": self.process,
-                "rates": self._rates, "alphabet": None if self.alphabet is None else "".join(self.alphabet)}
+        out = {"kind": "categories", "K": self.n_symbols, "L": self.L, "process": self.process,
+               "rates": self._rates, "alphabet": None if self.alphabet is None else "".join(self.alphabet)}
+        if self.variable_length:
+            out["variable_length"] = True
+        return out
+
+    def lengths(self, x: torch.Tensor) -> torch.Tensor:
+        """Sequence lengths (n,): the position of the first end state, or L."""
+        if self.end_state is None:
+            return torch.full((x.shape[0],), self.L, dtype=torch.int64)
+        end = x == self.end_state
+        return torch.where(end.any(-1), end.int().argmax(-1), torch.full_like(x[:, 0], self.L)).long()
 
     # ----- text <-> codes ------------------------------------------------------------------------
     def encode(self, strings) -> torch.Tensor:
-        """List of strings over ``alphabet`` -> validated codes (n, L)."""
+        """List of strings over ``alphabet`` -> validated codes (n, L) (padded with the end state if variable)."""
         if self.alphabet is None:
             raise InputError("Categories.encode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
-        return self.validate(encode_strings(list(strings), self.alphabet, length=self.L))
+        return self.validate(encode_strings(list(strings), self.alphabet, length=self.L, end=self.end_state))
 
     def decode(self, x: torch.Tensor) -> list[str]:
-        """Codes (n, L) -> strings over ``alphabet``."""
+        """Codes (n, L) -> strings over ``alphabet``, each read up to its first end state."""
         if self.alphabet is None:
             raise InputError("Categories.decode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
-        x = self.validate(x)
-        return ["".join(self.alphabet[k] for k in row) for row in x.tolist()]
+        x = torch.as_tensor(x)
+        if x.dim() != 2 or x.shape[1] != self.L or x.is_floating_point():
+            raise InputError(f"sequences: expected integer codes of shape (n, {self.L}), got {tuple(x.shape)}")
+        out = []
+        for row, n in zip(x.tolist(), self.lengths(x).tolist()):
+            bad = [k for k in row[:n] if not 0 <= k < self.n_symbols]
+            if bad:
+                raise InputError(f"sequences: code {bad[0]} is not a symbol of the alphabet", field="x")
+            out.append("".join(self.alphabet[k] for k in row[:n]))
+        return out
 
     # ----- validation, file rows -------------------------------------------------------------------
     def validate(self, x) -> torch.Tensor:
@@ -142,7 +190,7 @@ class Categories(FiniteStateSpace):
         if t.dim() != 2 or t.shape[1] != self.L:
             raise InputError(f"sequences: expected shape (n, {self.L}), got {tuple(t.shape)}")
         if t.shape[0] == 0:
-            raise InputError(f"sequences: no points (an empty batch of shape {tuple(t.shape)})")
+            raise InputError(f"sequences: no points (an empty array of shape {tuple(t.shape)})")
         if t.is_floating_point():
             bad = ~torch.isfinite(t) | (t != torch.round(t))
             if bool(bad.any()):
@@ -157,7 +205,22 @@ class Categories(FiniteStateSpace):
             shown = int(v) if abs(v) < 2**53 else v
             raise InputError(f"row {i}, position {j}: state {shown} is outside [0, {self.K})",
                              row=i, field=str(j))
-        return t.to(torch.int64)
+        t = t.to(torch.int64)
+        if self.end_state is not None:
+            self._check_ends(t)
+        return t
+
+    def _check_ends(self, t: torch.Tensor) -> None:
+        end = t == self.end_state
+        after = end.cumsum(-1) > 0                                   # at or after the first end state
+        bad = after & ~end
+        if bool(bad.any()):
+            i, j = map(int, bad.nonzero()[0])
+            raise InputError(f"row {i}, position {j}: a symbol after the end of the sequence", row=i, field=str(j))
+        empty = end[:, 0]
+        if bool(empty.any()):
+            i = int(empty.nonzero()[0, 0])
+            raise InputError(f"row {i}: an empty sequence (length 0)", row=i)
 
     def from_rows(self, rows, **options) -> torch.Tensor:
         """A table of integer state codes (n, L)."""
@@ -218,12 +281,22 @@ class Categories(FiniteStateSpace):
         return super().replace_given(x, part, t, generator)
 
     def random_uniform(self, n, generator=None):
-        return torch.randint(self.K, (n, self.L), generator=generator)
+        """Uniform sequences: L uniform states (variable lengths: a length with probability ∝ K^l, then symbols)."""
+        if self.end_state is None:
+            return torch.randint(self.K, (n, self.L), generator=generator)
+        k = self.n_symbols
+        logw = torch.arange(1, self.L + 1, dtype=DTYPE) * math.log(k)
+        length = 1 + torch.multinomial(torch.softmax(logw, 0), n, replacement=True, generator=generator)
+        x = torch.randint(k, (n, self.L), generator=generator)
+        return torch.where(torch.arange(self.L) < length.unsqueeze(-1), x, self.end_state)
 
     @property
     def log_volume(self) -> float:
-        """log of the number of sequences, L log K (counting measure)."""
-        return self.L * math.log(self.K)
+        """log of the number of sequences: L log K, or log Σ_{l=1..L} K^l for variable lengths."""
+        if self.end_state is None:
+            return self.L * math.log(self.K)
+        k = self.n_symbols
+        return float(torch.logsumexp(torch.arange(1, self.L + 1, dtype=DTYPE) * math.log(k), 0))
 
     def dist(self, x, y):
         """Hamming distance: number of positions where the sequences differ."""

@@ -89,7 +89,7 @@ from heatwalk.kernels.ornstein_uhlenbeck import ou_log_prob_and_score, ou_sample
 from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
 from heatwalk.spaces.manifold import Manifold
 
-#: rows whose parts sum to within this of 1 are rescaled to sum exactly 1; others are rejected
+#: rows whose parts sum to within this of 1 are closed (divided by their sum); others are rejected
 SUM_TOLERANCE = 1e-6
 
 
@@ -115,6 +115,9 @@ def helmert_basis(K: int) -> torch.Tensor:
 def closure(x: torch.Tensor) -> torch.Tensor:
     """C(x) = x / Σ x along the last axis."""
     return x / x.sum(-1, keepdim=True)
+
+
+close_rows = closure  # the same operation, for methods whose ``closure`` argument shadows the name
 
 
 def clr(x: torch.Tensor) -> torch.Tensor:
@@ -146,14 +149,14 @@ class Simplex(Manifold):
     ``validate`` rejects NaN/infinite entries, negative parts, parts exactly 0
     (read such data with ``from_rows(..., zero_replacement=δ)``), and rows whose
     sum differs from 1 by more than ``SUM_TOLERANCE`` = 1e-6; rows within the
-    tolerance are rescaled to sum exactly 1.
+    tolerance are closed (divided by their sum).
     """
 
     kind = "simplex"
     file_options = (
         Option("zero_replacement", float, "replace parts that are exactly 0 by DELTA (multiplicative replacement)",
                metavar="DELTA"),
-        Option("rescale", bool, "divide each row by its total (amounts, percentages, rounded shares)"),
+        Option("closure", bool, "close each row: divide it by its total (amounts, percentages, rounded shares)"),
     )
 
     def __init__(self, K: int = 3):
@@ -171,7 +174,7 @@ class Simplex(Manifold):
         cls.check_file_options(options)
         return cls(n_columns)
 
-    def from_rows(self, rows, *, zero_replacement: float | None = None, rescale: bool = False) -> torch.Tensor:
+    def from_rows(self, rows, *, zero_replacement: float | None = None, closure: bool = False) -> torch.Tensor:
         """Read compositions from an (n, K) float array.
 
         Parameters
@@ -186,7 +189,7 @@ class Simplex(Manifold):
             ratios between the non-zero parts are kept. δ must be smaller than
             every non-zero part of the rows it is applied to (the paper's
             setting: δ below the detection limit) and k δ < 1.
-        rescale : if True, each row is divided by its total (which must be
+        closure : if True, each row is closed: divided by its total (which must be
             > 0) instead of being required to sum to 1 within 1e-6: for rows
             of amounts (money, counts), percentages, or shares rounded so
             that they do not add up to 1. Applied before zero replacement.
@@ -200,16 +203,16 @@ class Simplex(Manifold):
                                  f"needs δ < 1/K = {1 / self.K:g}", field="zero_replacement")
         x = as_points(rows, self.ambient_shape, "compositions")
         self._check_nonnegative(x)
-        if rescale:
+        if closure:
             total = x.sum(-1)
             i = first_bad_row(total <= 0)
             if i is not None:
-                raise InputError(f"row {i}: parts add up to {float(total[i]):g}; rescaling needs a positive total",
+                raise InputError(f"row {i}: parts add up to {float(total[i]):g}; closure needs a positive total",
                                  row=i)
             x = x / total.unsqueeze(-1)
         else:
             self._check_sums(x)
-        x = closure(x)
+        x = close_rows(x)
         zero = x == 0
         i = first_bad_row(zero.any(-1))
         if i is not None:
@@ -260,7 +263,7 @@ class Simplex(Manifold):
         i = first_bad_row((s - 1).abs() > SUM_TOLERANCE)
         if i is not None:
             raise InputError(f"row {i}: parts sum to {float(s[i]):.9g}, not 1 (tolerance {SUM_TOLERANCE:g}); "
-                             f"rows of amounts, percentages or rounded shares can be read with the rescale "
+                             f"rows of amounts, percentages or rounded shares can be read with the closure "
                              f"option of Simplex.from_rows", row=i)
 
     @staticmethod

@@ -228,15 +228,33 @@ class SO3(IsotropicKernel, Manifold):
             return [f"rotvec_{c}_{unit}" for c in "xyz"]
         return [f"q{c}" for c in order]
 
+    @staticmethod
+    def from_euler(angles, seq: str, *, degrees: bool = False) -> torch.Tensor:
+        """Rotation matrices (n, 3, 3) from Euler angles (n, 3) in the stated convention ``seq``.
+
+        ``seq`` is scipy's: three axes from x, y, z, upper case for intrinsic rotations ("ZYZ", "XYZ") and
+        lower case for extrinsic ones ("zyx"); there is no default, since conventions differ between fields.
+        Computed by ``scipy.spatial.transform.Rotation.from_euler``.
+        """
+        from scipy.spatial.transform import Rotation
+
+        a = as_points(angles, (3,), "Euler angles").numpy()
+        if not isinstance(seq, str) or len(seq) != 3 or not (set(seq) <= set("xyz") or set(seq) <= set("XYZ")):
+            raise InputError(f"Euler angle convention must be three axes like 'ZYZ' (intrinsic) or 'xyz' "
+                             f"(extrinsic), got {seq!r}", field="seq")
+        return torch.as_tensor(Rotation.from_euler(seq, a, degrees=degrees).as_matrix(), dtype=DTYPE)
+
     # --- geometry --------------------------------------------------------------------------
     def validate(self, x) -> torch.Tensor:
         """Check rotation matrices; return them as float64 (n, 3, 3) on SO(3).
 
-        Rows must be finite 3x3 matrices with max |x^T x - I| ≤ 1e-6 and
-        det > 0. Rows within that tolerance are projected onto SO(3) by SVD
-        (nearest rotation in the Frobenius norm), so the result is orthogonal to
-        rounding. Raises :class:`InputError` naming the first bad row.
+        Accepts arrays or tensors of 3x3 matrices and ``scipy.spatial.transform.Rotation`` objects
+        (their matrices). Rows must be finite 3x3 matrices with max |x^T x - I| ≤ 1e-6 and det > 0.
+        Rows within that tolerance are projected onto SO(3) by SVD (nearest rotation in the Frobenius
+        norm), so the result is orthogonal to rounding. Raises :class:`InputError` naming the first bad row.
         """
+        if type(x).__module__.startswith("scipy.spatial.transform"):
+            x = x.as_matrix()
         x = as_points(x, self.ambient_shape, "rotation matrices")
         eye = torch.eye(3, dtype=DTYPE, device=x.device)
         err = (x.transpose(-1, -2) @ x - eye).abs().flatten(1).max(-1).values

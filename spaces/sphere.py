@@ -42,7 +42,8 @@ class Sphere(IsotropicKernel, Manifold):
     """
 
     kind = "sphere"
-    file_options = (Option("lonlat", bool, "S^2 as two columns latitude, longitude in degrees"),)
+    file_options = (Option("lonlat", bool, "S^2 as two columns longitude, latitude in degrees (in that order; "
+                           "right ascension and declination the same way)"),)
 
     def __init__(self, d: int = 2):
         self.d = check_positive_int("Sphere: d", d)
@@ -55,24 +56,28 @@ class Sphere(IsotropicKernel, Manifold):
     # --- file rows -------------------------------------------------------------------------
     @classmethod
     def from_table(cls, n_columns: int, *, lonlat: bool = False) -> "Sphere":
-        """S^{n_columns - 1} from unit vectors, or S^2 from latitude/longitude columns."""
+        """S^{n_columns - 1} from unit vectors, or S^2 from longitude/latitude columns."""
         return cls(2) if lonlat else cls(n_columns - 1)
 
     def from_rows(self, rows, *, lonlat: bool = False) -> torch.Tensor:
-        """Rows of d+1 coordinates of unit vectors; for S^2, ``lonlat=True`` reads two
-        columns (latitude, longitude) in degrees, latitude in [-90, 90], longitude in [-360, 360]."""
+        """Rows of d+1 coordinates of unit vectors; for S^2, ``lonlat=True`` reads two columns in the order
+        longitude, latitude, in degrees: longitude in [-360, 360], latitude in [-90, 90]. Right ascension and
+        declination (equatorial sky coordinates) are read the same way, RA as longitude, Dec as latitude.
+        x = cos(lat) cos(lon), y = cos(lat) sin(lon), z = sin(lat)."""
         if not lonlat:
             return self.validate(rows)
         if self.d != 2:
-            raise InputError(f"Sphere(d={self.d}): latitude/longitude rows are only defined for d = 2",
+            raise InputError(f"Sphere(d={self.d}): longitude/latitude rows are only defined for d = 2",
                              field="lonlat")
-        x = as_points(rows, (2,), "latitude/longitude rows")
-        for j, (name, limit) in enumerate((("latitude", 90.0), ("longitude", 360.0))):
+        x = as_points(rows, (2,), "longitude/latitude rows")
+        for j, (name, limit) in enumerate((("longitude", 360.0), ("latitude", 90.0))):
             i = first_bad_row(x[:, j].abs() > limit)
             if i is not None:
-                raise InputError(f"row {i}, column {j}: {name} {float(x[i, j]):g} degrees is outside "
-                                 f"[-{limit:g}, {limit:g}]", row=i, field=name)
-        lat, lon = torch.deg2rad(x[:, 0]), torch.deg2rad(x[:, 1])
+                hint = (" (lonlat reads longitude first, then latitude: are the columns swapped?)"
+                        if name == "latitude" and float(x[i, 0]) ** 2 <= 8100 else "")
+                raise InputError(f"row {i}, column {j + 1} ({name}): {float(x[i, j]):g} degrees is outside "
+                                 f"[-{limit:g}, {limit:g}]{hint}", row=i, field=name)
+        lon, lat = torch.deg2rad(x[:, 0]), torch.deg2rad(x[:, 1])
         pts = torch.stack([torch.cos(lat) * torch.cos(lon), torch.cos(lat) * torch.sin(lon), torch.sin(lat)], -1)
         return self.project(pts)
 
@@ -81,15 +86,15 @@ class Sphere(IsotropicKernel, Manifold):
         if not lonlat:
             return x.reshape(x.shape[0], -1)
         if self.d != 2:
-            raise InputError(f"Sphere(d={self.d}): latitude/longitude rows are only defined for d = 2",
+            raise InputError(f"Sphere(d={self.d}): longitude/latitude rows are only defined for d = 2",
                              field="lonlat")
         lat = torch.atan2(x[:, 2], torch.hypot(x[:, 0], x[:, 1]))
         lon = torch.atan2(x[:, 1], x[:, 0])
-        return torch.rad2deg(torch.stack([lat, lon], -1))
+        return torch.rad2deg(torch.stack([lon, lat], -1))
 
     def column_names(self, *, lonlat: bool = False) -> list[str]:
         if lonlat:
-            return ["latitude_deg", "longitude_deg"]
+            return ["longitude_deg", "latitude_deg"]
         return [f"x{i}" for i in range(self.d + 1)]
 
     # --- geometry --------------------------------------------------------------------------

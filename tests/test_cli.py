@@ -31,26 +31,26 @@ def angles_csv(tmp_path):
 
 def test_fit_then_sample_roundtrip(tmp_path, angles_csv, capsys):
     model = tmp_path / "model"
-    code, out, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--steps", "30",
+    code, out, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--train-steps", "30",
                           "--batch-size", "64", "--hidden", "32", "--quiet"], capsys)
     assert code == 0, err
     assert (model / "model.json").is_file() and (model / "weights.safetensors").is_file()
     samples = tmp_path / "s.csv"
-    code, out, err = run(["sample", str(model), "--n", "40", "--out", str(samples), "--steps", "20", "--quiet"],
+    code, out, err = run(["sample", str(model), "--n", "40", "--out", str(samples), "--reverse-steps", "20", "--quiet"],
                          capsys)
     assert code == 0, err
     rows = list(csv.reader(open(samples)))
-    assert rows[0] == ["angle0", "angle1"] and len(rows) == 41
+    assert rows[0] == ["phi", "psi"] and len(rows) == 41        # the data's column names travel with the model
     vals = np.array(rows[1:], dtype=float)
     assert np.all((vals >= -math.pi) & (vals < math.pi))
     # degrees on the way out
-    code, _, err = run(["sample", str(model), "--n", "5", "--out", str(tmp_path / "d.csv"), "--steps", "5",
+    code, _, err = run(["sample", str(model), "--n", "5", "--out", str(tmp_path / "d.csv"), "--reverse-steps", "5",
                         "--degrees", "--quiet"], capsys)
     assert code == 0, err
     vals = np.array(list(csv.reader(open(tmp_path / "d.csv")))[1:], dtype=float)
     assert np.all(np.abs(vals) <= 180)
     # an existing model folder is never overwritten silently
-    code, _, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--steps", "2",
+    code, _, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--train-steps", "2",
                         "--quiet"], capsys)
     assert code == 2 and "already exists" in err
 
@@ -70,7 +70,7 @@ def test_bad_input_exit_2_and_nothing_written(tmp_path, capsys, content, message
     p = tmp_path / "bad.csv"
     p.write_text(content)
     out = tmp_path / "model"
-    code, stdout, err = run(["fit", str(p), "--space", "torus", "--out", str(out), "--steps", "2", "--quiet"],
+    code, stdout, err = run(["fit", str(p), "--space", "torus", "--out", str(out), "--train-steps", "2", "--quiet"],
                             capsys)
     assert code == 2
     assert err.startswith("heatwalk: error: ") and err.count("\n") == 1 and "Traceback" not in err
@@ -83,7 +83,7 @@ def test_degrees_flag_reads_degrees(tmp_path, capsys):
     p = tmp_path / "deg.csv"
     p.write_text("10,20\n-170,179\n30,-60\n")
     code, _, err = run(["fit", str(p), "--space", "torus", "--degrees", "--out", str(tmp_path / "m"),
-                        "--steps", "2", "--hidden", "8", "--quiet"], capsys)
+                        "--train-steps", "2", "--hidden", "8", "--quiet"], capsys)
     assert code == 0, err
     import json
 
@@ -98,13 +98,13 @@ def test_unknown_space_and_missing_file(tmp_path, capsys):
     p = tmp_path / "a.csv"
     p.write_text("0.1,0.2\n")
     code, _, err = run(["fit", str(p), "--space", "klein_bottle", "--out", str(tmp_path / "m")], capsys)
-    assert code == 2 and "unknown space 'klein_bottle'" in err
+    assert code == 2 and "invalid choice: 'klein_bottle'" in err
 
 
 def test_demo_runs_as_a_command(tmp_path):
     # the installed console script, as a user would run it (short training to keep the suite fast)
     r = subprocess.run([sys.executable, "-m", "heatwalk.frontend.cli", "demo", "--out", str(tmp_path / "demo"),
-                        "--steps", "150", "--sample-steps", "40", "--quiet"], capture_output=True, text=True,
+                        "--train-steps", "150", "--reverse-steps", "40", "--quiet"], capture_output=True, text=True,
                        timeout=600)
     assert r.returncode == 0, r.stderr
     for name in ("samples.csv", "torsions.png", "report.json", "lanternfold_torsions.csv"):
@@ -116,7 +116,7 @@ BAD_MANIFOLD_FILES = [
     # (space, extra flags, file content, expected message)
     ("sphere", [], "0,0,1\n0,0.5,0.5\n", r"line 2: .*norm"),
     ("sphere", [], "0,0,1\n0,0,0\n", r"line 2: .*(zero|norm)"),
-    ("sphere", ["--lonlat"], "10,20\n95,20\n", r"line 2: .*latitude 95"),
+    ("sphere", ["--lonlat"], "20,10\n20,95\n", r"line 2: .*\(latitude\): 95 degrees"),
     ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0,0,0,1,0,0,0,-1\n", r"line 2: .*(reflection|det)"),
     ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0.2,0,0,1,0,0,0,1\n", r"line 2: .*not a rotation matrix"),
     ("so3", ["--rotation-format", "quaternion", "--quaternion-order", "wxyz"], "1,0,0,0\n0,0,0,0\n",
@@ -137,7 +137,7 @@ def test_bad_points_on_other_spaces(tmp_path, capsys, space, flags, content, mes
     p = tmp_path / "bad.csv"
     p.write_text(content)
     out = tmp_path / "model"
-    code, _, err = run(["fit", str(p), "--space", space, *flags, "--out", str(out), "--steps", "2", "--quiet"],
+    code, _, err = run(["fit", str(p), "--space", space, *flags, "--out", str(out), "--train-steps", "2", "--quiet"],
                        capsys)
     assert code == 2, err
     assert err.startswith("heatwalk: error: ") and err.count("\n") == 1 and "Traceback" not in err
@@ -150,16 +150,16 @@ def test_fit_sample_evaluate_on_the_sphere_with_latlon(tmp_path, capsys):
     lat = np.clip(40 + 10 * rng.standard_normal(200), -89, 89)
     lon = -30 + 20 * rng.standard_normal(200)
     p = tmp_path / "pts.csv"
-    p.write_text("lat,lon\n" + "".join(f"{a},{b}\n" for a, b in zip(lat, lon)))
+    p.write_text("lon,lat\n" + "".join(f"{b},{a}\n" for a, b in zip(lat, lon)))
     code, _, err = run(["fit", str(p), "--space", "sphere", "--lonlat", "--out", str(tmp_path / "m"),
-                        "--steps", "20", "--hidden", "16", "--quiet"], capsys)
+                        "--train-steps", "20", "--hidden", "16", "--quiet"], capsys)
     assert code == 0, err
     code, _, err = run(["sample", str(tmp_path / "m"), "--n", "10", "--out", str(tmp_path / "s.csv"),
-                        "--steps", "10", "--quiet"], capsys)
+                        "--reverse-steps", "10", "--quiet"], capsys)
     assert code == 0, err
     rows = list(csv.reader(open(tmp_path / "s.csv")))
-    assert rows[0] == ["latitude_deg", "longitude_deg"] and len(rows) == 11
-    code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--steps", "10",
+    assert rows[0] == ["lon", "lat"] and len(rows) == 11
+    code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--reverse-steps", "10",
                           "--likelihood-points", "5", "--quiet"], capsys)
     assert code == 0, err
     import json
@@ -179,16 +179,16 @@ def test_sequences_fit_sample_evaluate(tmp_path, capsys):
     seqs = ["".join(rng.choice(list("ACGT"), 8, p=[0.4, 0.3, 0.2, 0.1])) for _ in range(120)]
     p = tmp_path / "seqs.fasta"
     p.write_text(_fasta(seqs))
-    code, _, err = run(["fit", str(p), "--space", "categories", "--out", str(tmp_path / "m"), "--steps", "20",
+    code, _, err = run(["fit", str(p), "--space", "categories", "--out", str(tmp_path / "m"), "--train-steps", "20",
                         "--batch-size", "32", "--quiet"], capsys)
     assert code == 0, err
     code, _, err = run(["sample", str(tmp_path / "m"), "--n", "7", "--out", str(tmp_path / "s.fasta"),
-                        "--steps", "10", "--quiet"], capsys)
+                        "--reverse-steps", "10", "--quiet"], capsys)
     assert code == 0, err
     lines = (tmp_path / "s.fasta").read_text().split()
     body = [l for l in lines if not l.startswith(">")]
     assert len(body) == 7 and all(len(b) == 8 and set(b) <= set("ACGT") for b in body)
-    code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--steps", "10",
+    code, out, err = run(["evaluate", str(tmp_path / "m"), str(p), "--out", str(tmp_path / "ev"), "--reverse-steps", "10",
                           "--likelihood-points", "10", "--quiet"], capsys)
     assert code == 0, err
     import json
@@ -200,7 +200,8 @@ def test_sequences_fit_sample_evaluate(tmp_path, capsys):
 
 @pytest.mark.parametrize("content, flags, message", [
     (">a\nACGT\n>b\nACXT\n", ["--alphabet", "ACGT"], r"record 2, column 3: unknown symbol 'X'"),
-    (">a\nACGT\n>b\nACG\n", [], r"length"),
+    # records of different lengths are a variable-length model now; one longer than --length is refused
+    (">a\nACGT\n>b\nACGTA\n", ["--length", "4"], r"length 5, longer than the maximum 4"),
     (">a\nACGT\n>b\n\n>c\nACGT\n", [], r"empty"),
     (">a\nAAAA\n>b\nAAAA\n", [], r"at least 2|K"),
 ])
@@ -210,7 +211,7 @@ def test_bad_sequences_exit_2(tmp_path, capsys, content, flags, message):
     p = tmp_path / "bad.fasta"
     p.write_text(content)
     code, _, err = run(["fit", str(p), "--space", "categories", *flags, "--out", str(tmp_path / "m"),
-                        "--steps", "2", "--quiet"], capsys)
+                        "--train-steps", "2", "--quiet"], capsys)
     assert code == 2, err
     assert err.startswith("heatwalk: error: ") and err.count("\n") == 1
     assert re.search(message, err, flags=re.IGNORECASE), err

@@ -298,3 +298,14 @@ def test_user_guide_on_sequences_enriches_a_state():
     assert float((guided == 3).double().mean()) > float((plain == 3).double().mean()) + 0.3
     with pytest.raises(InputError, match="one log-likelihood per sample"):
         model.sample(5, steps=3, progress=False, guide=lambda p: p.sum())
+
+
+def test_conditional_log_prob_of_more_points_than_one_block():
+    # regression: labels were passed whole while the ODE works in blocks of 1024 points
+    x = np.random.default_rng(0).uniform(-3, 3, (1100, 1))
+    m = heatwalk.fit(Torus(1), x, labels=["a"] * 550 + ["b"] * 550, steps=2, progress=False,
+                     network={"hidden": 8, "depth": 1})
+    out = m.log_prob(x, label="a", method="rk4", steps=2)
+    assert out["log_prob"].shape == (1100,) and bool(torch.isfinite(out["log_prob"]).all())
+    first = m.log_prob(x[:1000], label="a", method="rk4", steps=2)["log_prob"]
+    torch.testing.assert_close(out["log_prob"][:1000], first, atol=1e-12, rtol=0)

@@ -284,7 +284,7 @@ def test_validate_errors_name_row_and_column():
     with pytest.raises(InputError, match=r"row 2, column 0: part is exactly 0.*zero_replacement") as e:
         s.validate([[0.2, 0.3, 0.5], [0.2, 0.3, 0.5], [0.0, 0.5, 0.5]])
     assert e.value.row == 2 and e.value.field == "0"
-    with pytest.raises(InputError, match=r"row 0: parts sum to 1.1, not 1 \(tolerance 1e-06\).*rescale option"):
+    with pytest.raises(InputError, match=r"row 0: parts sum to 1.1, not 1 \(tolerance 1e-06\).*closure option"):
         s.validate([[0.2, 0.4, 0.5]])
     with pytest.raises(InputError, match=r"expected shape \(n, 3\)"):
         s.validate([[0.5, 0.5]])
@@ -329,15 +329,15 @@ def test_from_rows_replacement_errors():
         s.from_rows([[0.5, 0.7, 0.0, -0.2]], zero_replacement=1e-3)
 
 
-def test_from_rows_rescale():
+def test_from_rows_closure():
     s = Simplex(3)
-    x = s.from_rows([[200.0, 300.0, 500.0], [1.0, 1.0, 2.0]], rescale=True)
+    x = s.from_rows([[200.0, 300.0, 500.0], [1.0, 1.0, 2.0]], closure=True)
     torch.testing.assert_close(x, torch.tensor([[0.2, 0.3, 0.5], [0.25, 0.25, 0.5]], dtype=F64), atol=1e-16, rtol=0)
-    x = s.from_rows([[0.0, 300.0, 700.0]], rescale=True, zero_replacement=1e-4)
+    x = s.from_rows([[0.0, 300.0, 700.0]], closure=True, zero_replacement=1e-4)
     torch.testing.assert_close(x, torch.tensor([[1e-4, 0.3 * (1 - 1e-4), 0.7 * (1 - 1e-4)]], dtype=F64),
                                atol=1e-16, rtol=0)
-    with pytest.raises(InputError, match=r"row 1: parts add up to 0; rescaling needs a positive total"):
-        s.from_rows([[1.0, 2.0, 3.0], [0.0, 0.0, 0.0]], rescale=True)
+    with pytest.raises(InputError, match=r"row 1: parts add up to 0; closure needs a positive total"):
+        s.from_rows([[1.0, 2.0, 3.0], [0.0, 0.0, 0.0]], closure=True)
     with pytest.raises(InputError, match=r"row 0: parts sum to 1000"):
         s.from_rows([[200.0, 300.0, 500.0]])
     with pytest.raises(InputError, match="takes no option degrees"):

@@ -404,13 +404,18 @@ def test_config_volume_and_rows():
     assert from_config(s2.config()) == s2 and s2.config() == {"kind": "sphere", "d": 2}
     assert abs(s2.log_volume - math.log(4 * math.pi)) < 1e-15  # area of S^2 = 4π
     assert abs(Sphere(3).log_volume - math.log(2 * math.pi ** 2)) < 1e-15
-    rows = torch.tensor([[0.0, 0.0], [90.0, 10.0], [-45.0, 270.0], [30.0, -120.0]], dtype=F64)
+    # rows are (longitude, latitude) in degrees, in that order
+    rows = torch.tensor([[0.0, 0.0], [10.0, 90.0], [270.0, -45.0], [-120.0, 30.0]], dtype=F64)
     x = s2.from_rows(rows, lonlat=True)
     torch.testing.assert_close(x[1], torch.tensor([0.0, 0.0, 1.0], dtype=F64), atol=1e-15, rtol=0)
+    # (lon, lat) = (-120, 30): x = cos 30° cos(-120°), y = cos 30° sin(-120°), z = sin 30° (spherical coordinates)
+    c = math.cos(math.radians(30))
+    torch.testing.assert_close(x[3], torch.tensor([-0.5 * c, -math.sqrt(3) / 2 * c, 0.5], dtype=F64), atol=1e-15,
+                               rtol=0)
     back = s2.to_rows(x, lonlat=True)
     torch.testing.assert_close(back[[0, 3]], rows[[0, 3]], atol=1e-12, rtol=0)
-    torch.testing.assert_close(back[2], torch.tensor([-45.0, -90.0], dtype=F64), atol=1e-12, rtol=0)
-    assert s2.column_names(lonlat=True) == ["latitude_deg", "longitude_deg"]
+    torch.testing.assert_close(back[2], torch.tensor([-90.0, -45.0], dtype=F64), atol=1e-12, rtol=0)
+    assert s2.column_names(lonlat=True) == ["longitude_deg", "latitude_deg"]
 
 
 def test_validation_errors():
@@ -425,10 +430,13 @@ def test_validation_errors():
         s2.validate([[1.0, 0, 0], [1.1, 0, 0]])
     ok = s2.validate([[1.0 + 5e-7, 0, 0]])  # within 1e-6: renormalised
     assert float(ok.norm()) == 1.0
-    with pytest.raises(InputError, match="row 1, column 0: latitude 91"):
-        s2.from_rows([[0.0, 0.0], [91.0, 0.0]], lonlat=True)
-    with pytest.raises(InputError, match="row 0, column 1: longitude 400"):
-        s2.from_rows([[0.0, 400.0]], lonlat=True)
+    with pytest.raises(InputError, match=r"row 1, column 2 \(latitude\): 91 degrees"):
+        s2.from_rows([[0.0, 0.0], [0.0, 91.0]], lonlat=True)
+    with pytest.raises(InputError, match=r"row 0, column 1 \(longitude\): 400 degrees"):
+        s2.from_rows([[400.0, 0.0]], lonlat=True)
+    # a file in latitude, longitude order is caught where a "latitude" leaves [-90, 90], with a hint
+    with pytest.raises(InputError, match="are the columns swapped"):
+        s2.from_rows([[45.0, 10.0], [30.0, 120.0]], lonlat=True)
     with pytest.raises(InputError, match="only defined for d = 2"):
         Sphere(3).from_rows([[0.0, 0.0]], lonlat=True)
     with pytest.raises(InputError, match="d must be a positive integer"):

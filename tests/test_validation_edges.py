@@ -16,7 +16,7 @@ MANIFOLDS = [Torus(2), Sphere(2), SO3(), Simplex(3), Euclidean(2)]
 def test_an_empty_batch_has_no_points(space):
     # was a raw RuntimeError (reshaping 0 elements) on manifolds
     empty = torch.zeros(0, *space.ambient_shape, dtype=torch.float64)
-    with pytest.raises(InputError, match=r"no points \(an empty batch of shape \(0, "):
+    with pytest.raises(InputError, match=r"no points \(an empty array of shape \(0, "):
         space.validate(empty)
     with pytest.raises(InputError, match="no points"):
         space.from_rows(np.zeros((0, space.n_columns)))

@@ -30,7 +30,7 @@ from heatwalk.core.objectives import make_objective
 from heatwalk.core.result_checks import (arithmetic_failures_as_input_errors, check_finite_log_prob,
                                          check_finite_samples)
 from heatwalk.errors import InputError
-from heatwalk.io.atomic import atomic_dir
+from heatwalk.io.atomic import WEIGHT_FILES, atomic_dir
 from heatwalk.samplers import SAMPLERS
 from heatwalk.spaces import from_config
 from heatwalk.spaces.base import CAPABILITIES, Space
@@ -173,17 +173,35 @@ class Model:
             "record": self.record,
         }
 
-    def save(self, path, *, overwrite: bool = False) -> Path:
+    def save(self, path, *, overwrite: bool = False, extra_files: dict[str, str] | None = None) -> Path:
         """Write the model folder atomically (model.json, weights.safetensors).
 
         ``overwrite`` replaces an existing model folder, report folder or empty folder, nothing else
-        (:func:`heatwalk.io.atomic.atomic_dir`).
+        (:func:`heatwalk.io.atomic.atomic_dir`). ``extra_files`` ({name: text}) are written into the
+        folder too (e.g. the CLI's resolved config).
         """
         path = Path(path)
         with atomic_dir(path, overwrite=overwrite) as tmp:
             (tmp / "model.json").write_text(json.dumps(self.config(), indent=2, sort_keys=True) + "\n")
             write_weights(tmp, self.network)
+            for name, text in (extra_files or {}).items():
+                if Path(name).name != name or name in ("model.json", *WEIGHT_FILES):
+                    raise InputError(f"extra file name {name!r} must be a plain file name", field="extra_files")
+                (tmp / name).write_text(text)
         return path
+
+    def __repr__(self) -> str:
+        r = self.record
+        parts = [f"space={self.space!r}", f"objective={self.objective.name}"]
+        if "n_data" in r:
+            parts.append(f"n_data={r['n_data']}")
+        if "steps" in r:
+            parts.append(f"steps={r['steps']}")
+        if r.get("mean_loss_last_100_steps") is not None:
+            parts.append(f"loss={r['mean_loss_last_100_steps']:.4g}")
+        if self.classes is not None:
+            parts.append(f"classes={len(self.classes)}")
+        return f"Model({', '.join(parts)})"
 
 
 def _rebuilt(where: Path, key: str, build):

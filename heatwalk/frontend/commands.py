@@ -1,4 +1,4 @@
-"""The ``fit``, ``sample`` and ``evaluate`` commands (the parser is in :mod:`heatwalk.frontend.cli`)."""
+"""The commands behind the parser of :mod:`heatwalk.frontend.cli`: fit, sample, evaluate, torsions, info."""
 
 from __future__ import annotations
 
@@ -22,6 +22,13 @@ def _refuse_existing(out: Path, overwrite: bool) -> None:
         raise InputError(f"{out} already exists (pass --overwrite to replace it)", field="out")
 
 
+def _require(args, *names) -> None:
+    for name in names:
+        if getattr(args, name, None) in (None, ""):
+            flag = name if name in ("data", "model") else "--" + name.replace("_", "-")
+            raise InputError(f"{flag} is required (on the command line or in the --config file)", field=name)
+
+
 def _file_options(args, model) -> dict:
     """Reading options given on the command line, else those the model was fitted with."""
     space_cls = type(model.space)
@@ -31,53 +38,192 @@ def _file_options(args, model) -> dict:
     return options or dict(model.record.get("reading_options", {}))
 
 
+# ----- fit ----------------------------------------------------------------------------------------------
+def _resolve_fit(args):
+    """Merge config file, command line and defaults; returns (the fit flags, every config key's type)."""
+    from heatwalk.frontend.config_file import merge_config
+    from heatwalk.frontend.flags import apply_defaults, fit_flags
+    from heatwalk.frontend.options import declared_option_kinds
+
+    flags = fit_flags()
+    kinds = {f.name: (list if f.name == "columns" else f.kind) for f in flags} | declared_option_kinds()
+    if args.config:
+        merge_config(args, args.config, kinds)
+    apply_defaults(args, flags)
+    _require(args, "data", "space", "out")
+    return flags, kinds
+
+
 def cmd_fit(args) -> int:
     import heatwalk
+    from heatwalk.frontend.config_file import resolved_toml
     from heatwalk.io.points import files_for, split_options
 
-    out = Path(args.out)
-    _refuse_existing(out, args.overwrite)
+    flags, kinds = _resolve_fit(args)
     space_cls = _space_class(args.space)
     options = chosen_options(args, space_cls)
-    space, x = files_for(space_cls).read_new(args.data, space_cls, options)
+    config_text = resolved_toml(args, list(kinds))
+    if args.dry_run:
+        print(config_text, end="")
+        return 0
+    out = Path(args.out)
+    _refuse_existing(out, args.overwrite)
+    columns = [c.strip() for c in args.columns.split(",")] if args.columns else None
+    space, x, facts = files_for(space_cls).read_new(args.data, space_cls, options, columns=columns,
+                                                    labels=args.labels or None, delimiter=args.delimiter)
     network = {k: v for k, v in (("hidden", args.hidden), ("depth", args.depth)) if v is not None}
-    model = heatwalk.fit(space, x, steps=args.steps, batch_size=args.batch_size, lr=args.learning_rate,
+    labels = None if facts["labels"] is None else list(facts["labels"])
+    model = heatwalk.fit(space, x, steps=args.train_steps, batch_size=args.batch_size, lr=args.learning_rate,
                          seed=args.seed, network=network, progress=not args.quiet,
                          checkpoint_dir=args.checkpoints, checkpoint_every=args.checkpoint_every,
-                         resume=args.resume)
+                         resume=args.resume, inpainting=args.inpainting, threads=args.threads,
+                         labels=labels, label_dropout=args.label_dropout)
     model.record["data_file"] = str(Path(args.data).resolve())
     model.record["reading_options"] = split_options(space_cls, options)[0]
-    model.save(out, overwrite=args.overwrite)
-    print(f"fitted {space!r} to {x.shape[0]} points in {model.record['train_seconds']:.1f} s "
-          f"(mean loss of the last 100 steps {model.record['mean_loss_last_100_steps']:.4f}); "
-          f"model written to {out}")
+    model.record.update({k: facts[k] for k in ("columns", "ignored", "label_column") if facts.get(k)})
+    model.save(out, overwrite=args.overwrite, extra_files={"fit_config.toml": config_text})
+    print(summary(model, out))
     return 0
+
+
+def summary(model, folder) -> str:
+    """The one-screen summary printed at the end of ``fit`` and by ``heatwalk info``."""
+    r = model.record
+    lines = [f"heatwalk model in {folder}",
+             f"  space        {model.space!r}",
+             f"  data         {r.get('n_data', '?')} points from {r.get('data_file', '(Python API)')}"]
+    if r.get("columns"):
+        lines.append(f"  columns      {', '.join(r['columns'])} -> the {len(r['columns'])} coordinates of the space"
+                     + (f"; labels from {r['label_column']}" if r.get("label_column") else ""))
+    if r.get("ignored"):
+        lines.append(f"  ignored      {', '.join(r['ignored'])}")
+    if r.get("reading_options"):
+        lines.append("  reading      " + ", ".join(f"{k}={v}" for k, v in r["reading_options"].items()))
+    if model.classes is not None:
+        lines.append(f"  labels       {len(model.classes)} classes: {', '.join(map(str, model.classes[:8]))}"
+                     + (" …" if len(model.classes) > 8 else ""))
+    loss = r.get("mean_loss_last_100_steps")
+    lines.append(f"  training     {r.get('steps', '?')} steps, batch {r.get('batch_size', '?')}, "
+                 f"learning rate {r.get('lr', '?')}, seed {r.get('seed', '?')}"
+                 + (f", resumed from step {r['resumed_from_step']}" if r.get("resumed_from_step") else ""))
+    lines.append("  loss         " + (f"{loss:.4f} (mean of the last 100 steps)" if loss is not None else "n/a")
+                 + (f", {r['train_seconds']:.1f} s" if "train_seconds" in r else ""))
+    lines.append(f"  objective    {model.objective.name}; default sampler {model.objective.default_sampler}"
+                 + ("; trained for fixed coordinates" if model.objective.inpainting else ""))
+    lines.append(f"  network      {type(model.network).__name__} with "
+                 f"{sum(p.numel() for p in model.network.parameters())} parameters")
+    return "\n".join(lines)
+
+
+def cmd_info(args) -> int:
+    import heatwalk
+
+    print(summary(heatwalk.load(args.model), args.model))
+    return 0
+
+
+# ----- sample -----------------------------------------------------------------------------------------
+def _column_names(model, options) -> list[str]:
+    return list(model.record.get("columns") or model.space.column_names(**options))
+
+
+def _output_names(model, options):
+    """The model's data column names for written samples when they fit the written columns (else the space's)."""
+    names = model.record.get("columns")
+    if names and len(names) == len(model.space.column_names(**options)):
+        return list(names)
+    return None
+
+
+def _given_from_rows(model, names, rows, options, where) -> dict:
+    """``given`` for Model.sample from named values in the data file's units (one row or one per sample)."""
+    import torch
+
+    columns = _column_names(model, options)
+    space = model.space
+    index = []
+    for name in names:
+        if name not in columns:
+            raise InputError(f"{where}: {name!r} is not a column of the model's data ({', '.join(columns)})",
+                             field="fix")
+        index.append(columns.index(name))
+    if "sequences" in space.capabilities:
+        return {i: [row[k] for row in rows] if len(rows) > 1 else rows[0][k] for k, i in enumerate(index)}
+    full = torch.zeros(len(rows), len(columns), dtype=torch.float64)
+    try:
+        full[:, index] = torch.tensor([[float(v) for v in row] for row in rows], dtype=torch.float64)
+    except ValueError as e:
+        raise InputError(f"{where}: a fixed value is not a number ({e})", field="fix") from None
+    converted = space.from_rows(full, **options) if "coordinates" in space.capabilities else None
+    if converted is None:
+        raise InputError(f"{where}: {space!r} has no coordinates that can be fixed", field="fix")
+    return {i: converted[:, i] for i in index}
+
+
+def _parse_fix(model, fixes, options) -> dict:
+    names, values = [], []
+    for item in fixes:
+        if "=" not in item:
+            raise InputError(f"--fix {item!r}: expected NAME=VALUE, e.g. --fix phi=-60", field="fix")
+        name, value = item.split("=", 1)
+        names.append(name.strip())
+        values.append(value.strip())
+    return _given_from_rows(model, names, [values], options, "--fix")
+
+
+def _parse_given_file(model, path, options) -> dict:
+    from heatwalk.io.tables import read_table
+
+    from heatwalk.io.table_base import position_names
+
+    table = read_table(path)
+    if table.names == position_names(len(table.names)):
+        raise InputError(f"{path}: a --given table needs a header naming its columns", field="given")
+    return _given_from_rows(model, table.names, table.values.tolist(), options, str(path))
 
 
 def cmd_sample(args) -> int:
     import heatwalk
+    from heatwalk.frontend.flags import apply_defaults, sample_flags
     from heatwalk.io.points import files_for
 
-    model = heatwalk.load(args.model)
+    apply_defaults(args, sample_flags())
+    _require(args, "n", "out")
     out = Path(args.out)
     _refuse_existing(out, args.overwrite)
+    model = heatwalk.load(args.model)
+    files_for(model.space).check_output(out)
     options = _file_options(args, model)
+    given = {}
+    if args.given:
+        given.update(_parse_given_file(model, args.given, options))
+    if args.fix:
+        given.update(_parse_fix(model, args.fix, options))
     t0 = time.perf_counter()
-    x = model.sample(args.n, steps=args.steps, sampler=args.sampler, seed=args.seed, progress=not args.quiet)
-    files_for(model.space).write(out, model.space, x, options, overwrite=args.overwrite)
+    x = model.sample(args.n, steps=args.reverse_steps, sampler=args.sampler, seed=args.seed,
+                     progress=not args.quiet, label=args.label, guidance=args.guidance, given=given or None,
+                     given_method=args.given_method)
+    files_for(model.space).write(out, model.space, x, options, overwrite=args.overwrite,
+                                 names=_output_names(model, options))
     print(f"wrote {args.n} samples to {out} in {time.perf_counter() - t0:.1f} s")
     return 0
 
 
+# ----- evaluate, torsions ------------------------------------------------------------------------------
 def cmd_evaluate(args) -> int:
     import heatwalk
     from heatwalk.frontend.evaluation import evaluate, format_table, write_report
+    from heatwalk.frontend.flags import apply_defaults, evaluate_flags
     from heatwalk.frontend.plots import plot_data_and_samples
     from heatwalk.io.points import files_for
 
+    apply_defaults(args, evaluate_flags())
+    _require(args, "out")
+    _refuse_existing(Path(args.out), args.overwrite)
     model = heatwalk.load(args.model)
-    x = files_for(model.space).read(args.data, model.space, _file_options(args, model))
-    report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.steps, sampler=args.sampler,
+    x = files_for(model.space).read(args.data, model.space, _file_options(args, model),
+                                    columns=model.record.get("columns"))
+    report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
                                likelihood_points=args.likelihood_points, progress=not args.quiet)
     report["model"] = str(Path(args.model).resolve())
     report["data_file"] = str(Path(args.data).resolve())
@@ -86,4 +232,17 @@ def cmd_evaluate(args) -> int:
                                 title="data vs samples")
     print(format_table(report))
     print(f"wrote {j}, {t}" + (f", {pic}" if pic else " (no picture for this space)"))
+    return 0
+
+
+def cmd_torsions(args) -> int:
+    from heatwalk.io.structures import torsion_table, write_torsion_table
+
+    out = Path(args.out)
+    _refuse_existing(out, args.overwrite)
+    table = torsion_table(args.structures, topology=args.topology, chi=args.chi,
+                          keep_incomplete=args.keep_incomplete, progress=not args.quiet)
+    write_torsion_table(table, out, overwrite=args.overwrite)
+    frames = table["frame"].nunique() if len(table) else 0
+    print(f"wrote {len(table)} residues ({frames} frame(s), {len(args.structures)} file(s)) to {out}")
     return 0

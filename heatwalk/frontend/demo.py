@@ -11,12 +11,14 @@ def cmd_demo(args) -> int:
 
     import heatwalk
     from heatwalk.frontend.demo_data import lanternfold_torsions
+    from heatwalk.frontend.flags import apply_defaults, demo_flags
     from heatwalk.frontend.evaluation import sample_metrics
     from heatwalk.frontend.plots import plot_data_and_samples
     from heatwalk.io.atomic import write_json
     from heatwalk.io.tables import write_points
     from heatwalk.spaces import Torus
 
+    apply_defaults(args, demo_flags())
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     space = Torus(2)
@@ -24,9 +26,10 @@ def cmd_demo(args) -> int:
     train, held_a, held_b = data[:4000], data[4000:5000], data[5000:]
     print("demo: fitting backbone torsions (phi, psi) of the invented 'lanternfold' peptide family on T^2")
     write_points(out / "lanternfold_torsions.csv", space, train, overwrite=True)
-    model = heatwalk.fit(space, train, steps=args.steps, batch_size=512, seed=args.seed, progress=not args.quiet)
+    write_points(out / "heldout.csv", space, data[4000:], overwrite=True)
+    model = heatwalk.fit(space, train, steps=args.train_steps, batch_size=512, seed=args.seed, progress=not args.quiet)
     model.save(out / "model", overwrite=True)
-    samples = model.sample(2000, steps=args.sample_steps, sampler="predictor_corrector", seed=args.seed,
+    samples = model.sample(2000, steps=args.reverse_steps, sampler="predictor_corrector", seed=args.seed,
                            progress=not args.quiet)
     write_points(out / "samples.csv", space, samples, overwrite=True)
     uniform = space.random_uniform(2000, torch.Generator().manual_seed(args.seed + 1))

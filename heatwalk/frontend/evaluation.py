@@ -45,6 +45,17 @@ def _kmers(space, samples, half_a, half_b, bandwidth=None) -> dict:
                      "noise_floor_b_vs_a": kmer_spectrum_distance(half_b, half_a, space.K, k)} for k in ks}
 
 
+def _lengths(space, samples, half_a, half_b, bandwidth=None) -> dict:
+    def hist(x):
+        return torch.bincount(space.lengths(x), minlength=space.L + 1).double() / x.shape[0]
+
+    a = hist(half_a)
+    la, lb, ls = (float(space.lengths(z).double().mean()) for z in (half_a, half_b, samples))
+    return {"tv_model_vs_a": float(0.5 * (hist(samples) - a).abs().sum()),
+            "tv_noise_floor_b_vs_a": float(0.5 * (hist(half_b) - a).abs().sum()),
+            "mean_length": {"samples": ls, "a": la, "b": lb}}
+
+
 @dataclass(frozen=True)
 class SampleMetric:
     """A two-sample metric: its report key, the space capabilities it needs, and how to compute it."""
@@ -58,6 +69,7 @@ SAMPLE_METRICS = (
     SampleMetric("mmd2", frozenset(), _mmd),
     SampleMetric("wasserstein1_per_angle_rad", frozenset({"angles"}), _circular_w1),
     SampleMetric("kmer_tv_distance", frozenset({"sequences"}), _kmers),
+    SampleMetric("length_distribution", frozenset({"variable_length"}), _lengths),
 )
 
 
@@ -133,6 +145,11 @@ def format_table(report: dict) -> str:
     for k, v in report.get("kmer_tv_distance", {}).items():
         lines.append(f"  {k}-mer spectrum TV distance: samples vs A {v['model_vs_a']:.4f}   "
                      f"floor {v['noise_floor_b_vs_a']:.4f}")
+    if "length_distribution" in report:
+        d = report["length_distribution"]
+        lines.append(f"  length distribution TV distance: samples vs A {d['tv_model_vs_a']:.4f}   floor "
+                     f"{d['tv_noise_floor_b_vs_a']:.4f}   mean length samples {d['mean_length']['samples']:.1f}, "
+                     f"data {d['mean_length']['a']:.1f}")
     lines.append("  timings (s): " + ", ".join(f"{k} {v:.1f}" for k, v in report["timings_s"].items()))
     return "\n".join(lines)
 

@@ -55,3 +55,8 @@ def chosen_options(args, space_cls) -> dict:
                              f"(its options: {takes})", field=name)
         chosen[name] = value
     return chosen
+
+
+def declared_option_kinds() -> dict[str, type]:
+    """{option name: its type} over every registered space's declared options (the config file's extra keys)."""
+    return {name: decls[0][1].kind for name, decls in _declared_options().items()}

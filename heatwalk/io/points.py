@@ -5,11 +5,15 @@ A space declares ``file_kind`` (``"table"`` or ``"sequences"``) and its
 the object that reads and writes such files, so the command line never tests
 which space it has:
 
-- ``read_new(path, space_cls, options)`` -> (space, points): the space is
-  built from what the file holds (a table's column count, a sequence file's
-  alphabet and length) — the file is read once;
-- ``read(path, space, options)`` -> points on a known space (a fitted model's);
-- ``write(path, space, x, options, overwrite)``.
+- ``read_new(path, space_cls, options, **table)`` -> (space, points, facts):
+  the space is built from what the file holds (a table's column count, a
+  sequence file's alphabet and length) — the file is read once; ``facts`` says
+  what was read (data column names, ignored columns, the label column's values);
+- ``read(path, space, options, columns=None)`` -> points on a known space (a
+  fitted model's), selecting the model's columns by name when the file has them;
+- ``write(path, space, x, options, overwrite, names=None)``;
+- ``check_output(path)`` -> the output format, or InputError for an extension this file kind cannot
+  be written as (call it before any work).
 
 ``options`` are the reading options (``file_options``) plus, for
 ``read_new``, the space-building options (``build_options``).
@@ -20,11 +24,34 @@ from __future__ import annotations
 from pathlib import Path
 
 from heatwalk.errors import InputError
-from heatwalk.io.sequence_files import read_sequences, write_sequences
-from heatwalk.io.tables import points_from_table, read_table, write_points
+from heatwalk.io.formats import check_output_format
+from heatwalk.io.sequence_files import read_records, write_records
+from heatwalk.spaces.alphabet import check_alphabet, encode_strings
 
-#: file suffixes written as plain text (one sequence per line); everything else is FASTA
-TEXT_SUFFIXES = (".txt", ".text")
+
+def recs_alphabet(recs, opts: dict) -> list[str]:
+    """The alphabet of records read with ``opts``: the given one, else the sorted symbols that occur."""
+    if opts.get("alphabet") is not None:
+        symbols = [c.upper() for c in opts["alphabet"]] if opts.get("uppercase") else list(opts["alphabet"])
+    else:
+        symbols = sorted(set("".join(recs.sequences)))
+    if len(symbols) < 2:
+        raise InputError(f"the alphabet has {len(symbols)} symbol(s) {''.join(symbols)!r}; a categorical model "
+                         "needs at least 2", field="alphabet")
+    return check_alphabet(symbols, len(symbols))
+
+
+def encode_records(recs, space, where: str):
+    """Codes (n, L) of the records on ``space`` (padded with the end state of a variable-length space)."""
+    lengths = recs.lengths
+    if space.end_state is None and bool((lengths != space.L).any()):
+        i = int((lengths != space.L).nonzero()[0][0])
+        raise InputError(f"{where}: record {i + 1} ({recs.names[i]!r}) has length {int(lengths[i])}, but the model's "
+                         f"sequences have length {space.L}", row=i, field="length")
+    return space.validate(encode_strings(recs.sequences, space.alphabet, length=space.L, where=where,
+                                         end=space.end_state))
+from heatwalk.io.table_base import position_names
+from heatwalk.io.tables import points_from_table, read_table, write_points
 
 
 def split_options(space_cls, options: dict) -> tuple[dict, dict]:
@@ -39,23 +66,44 @@ def split_options(space_cls, options: dict) -> tuple[dict, dict]:
 
 
 class TableFiles:
-    """CSV tables of numbers, one point per row (:mod:`heatwalk.io.tables`)."""
+    """Tables of numbers (CSV, TSV, Parquet, NPZ), one point per row (:mod:`heatwalk.io.tables`)."""
 
-    def read_new(self, path, space_cls, options: dict):
+    def check_output(self, path):
+        return check_output_format(path, "table")
+
+    def read_new(self, path, space_cls, options: dict, *, columns=None, labels=None, delimiter=None):
         file_opts, build_opts = split_options(space_cls, options)
-        table = read_table(path)
-        space = space_cls.from_table(table[0].shape[1], **file_opts, **build_opts)
-        return space, points_from_table(path, space, table, **file_opts)
+        table = read_table(path, columns=columns, labels=labels, delimiter=delimiter)
+        if table.values.shape[1] == 0:
+            raise InputError(f"{path}: no data columns are left (all were ignored or used as labels)",
+                             field="columns")
+        space = space_cls.from_table(table.values.shape[1], **file_opts, **build_opts)
+        facts = {"columns": list(table.names), "ignored": list(table.ignored), "labels": table.labels,
+                 "label_column": table.label_name}
+        return space, points_from_table(path, space, table, **file_opts), facts
 
-    def read(self, path, space, options: dict):
-        return points_from_table(path, space, read_table(path), **options)
+    def read(self, path, space, options: dict, *, columns=None, delimiter=None):
+        if columns is not None:
+            try:
+                table = read_table(path, columns=list(columns), delimiter=delimiter)
+            except InputError:
+                table = read_table(path, delimiter=delimiter)
+                if table.names != position_names(len(table.names)) or len(table.names) != len(columns):
+                    raise InputError(f"{path}: the model was fitted on columns {', '.join(columns)}; this file "
+                                     f"has {', '.join(table.names)}", field="columns") from None
+        else:
+            table = read_table(path, delimiter=delimiter)
+        return points_from_table(path, space, table, **options)
 
-    def write(self, path, space, x, options: dict, overwrite: bool) -> Path:
-        return write_points(path, space, x, overwrite=overwrite, **options)
+    def write(self, path, space, x, options: dict, overwrite: bool, names=None) -> Path:
+        return write_points(path, space, x, overwrite=overwrite, names=names, **options)
 
 
 class SequenceFiles:
     """FASTA or one-sequence-per-line text files (:mod:`heatwalk.io.sequence_files`)."""
+
+    def check_output(self, path):
+        return check_output_format(path, "sequences")
 
     @staticmethod
     def _reader_options(options: dict) -> dict:
@@ -63,20 +111,35 @@ class SequenceFiles:
         out["format"] = options.get("sequence_format") or "auto"
         return out
 
-    def read_new(self, path, space_cls, options: dict):
+    def read_new(self, path, space_cls, options: dict, *, columns=None, labels=None, delimiter=None):
+        if columns is not None or labels is not None or delimiter is not None:
+            raise InputError(f"{path}: columns, labels and delimiter apply to tables, not to sequence files",
+                             field="columns" if columns is not None else "labels" if labels is not None
+                             else "delimiter")
         file_opts, build_opts = split_options(space_cls, options)
-        seqs = read_sequences(path, **self._reader_options(file_opts))
-        return space_cls.from_alphabet(seqs.alphabet, seqs.L, **build_opts), seqs.codes
+        opts = self._reader_options(file_opts)
+        length = opts.pop("length", None)
+        recs = read_records(path, **opts)
+        alphabet = recs_alphabet(recs, opts)
+        lengths = recs.lengths
+        variable = bool((lengths != lengths[0]).any()) or (length is not None and bool((lengths < length).any()))
+        L = int(lengths.max()) if length is None else length
+        space = space_cls.from_alphabet(alphabet, L, variable_length=variable, **build_opts)
+        codes = encode_records(recs, space, str(path))
+        facts = {"columns": None, "ignored": [], "labels": None, "label_column": None, "records": len(recs.names),
+                 "dropped_records": len(recs.dropped), "lengths": [int(lengths.min()), int(lengths.max())]}
+        return space, codes, facts
 
-    def read(self, path, space, options: dict):
-        opts = {k: v for k, v in self._reader_options(options).items() if k in ("format", "uppercase")}
-        return read_sequences(path, alphabet=space.alphabet, length=space.L, **opts).codes
+    def read(self, path, space, options: dict, *, columns=None, delimiter=None):
+        keep = ("format", "uppercase", "unknown_symbols", "stop_symbol")
+        opts = {k: v for k, v in self._reader_options(options).items() if k in keep}
+        recs = read_records(path, alphabet=space.alphabet, **opts)
+        return encode_records(recs, space, str(path))
 
-    def write(self, path, space, x, options: dict, overwrite: bool) -> Path:
+    def write(self, path, space, x, options: dict, overwrite: bool, names=None) -> Path:
         if space.alphabet is None:
             raise InputError(f"{space!r} has no alphabet: its samples cannot be written as text", field="alphabet")
-        fmt = "text" if str(path).endswith(TEXT_SUFFIXES) else "fasta"
-        return write_sequences(path, x, space.alphabet, format=fmt, overwrite=overwrite)
+        return write_records(path, space.decode(x), overwrite=overwrite)
 
 
 FILE_KINDS = {"table": TableFiles(), "sequences": SequenceFiles()}

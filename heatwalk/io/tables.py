@@ -1,15 +1,25 @@
-"""Reading points from CSV files and writing samples, with errors that name file, line and column.
+"""Tables of numbers in and out: CSV / TSV, Parquet and NPZ, with errors that name file, line and column.
 
-CSV layout read by :func:`read_table`: comma-separated numbers, one point per
-line; an optional first line of column names (recognised when none of its
-cells parses as a number); blank lines and lines starting with ``#`` are
-skipped. Every data line must have the same number of cells.
+Reading (:func:`read_table`) tells the format from the file's first bytes:
+Parquet (``PAR1``), NPZ (a zip archive), otherwise delimited text, gzipped or
+not (:mod:`heatwalk.io.delimited` describes the text layout,
+:mod:`heatwalk.io.columnar` the binary ones). It returns a
+:class:`~heatwalk.io.table_base.Table`: float64 values of the data columns,
+their names, the line (text) or row (binary) of each row, the ignored columns
+and, when asked, the raw values of a label column. Which columns are data:
+:mod:`heatwalk.io.table_base`.
+
+Writing (:func:`write_table`) picks the format from the extension
+(:mod:`heatwalk.io.formats`), checked before any work, and writes atomically
+(a temporary file renamed into place); an existing file is replaced only with
+``overwrite=True``. Floats are written in full precision: a table written and
+read back gives the same float64 values, bit for bit.
+
+:func:`read_points` / :func:`write_points` put a space's rows through these.
 """
 
 from __future__ import annotations
 
-import csv
-import math
 from pathlib import Path
 
 import numpy as np
@@ -17,72 +27,141 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.io.atomic import atomic_path
+from heatwalk.io.columnar import read_npz, read_parquet
+from heatwalk.io.delimited import read_delimited
+from heatwalk.io.formats import check_output_format
+from heatwalk.io.source import PARQUET_MAGIC, ZIP_MAGIC, check_readable, magic
+from heatwalk.io.table_base import Table
 from heatwalk.spaces.base import Space
 
-
-def _is_number(cell: str) -> bool:
-    try:
-        float(cell)
-        return True
-    except ValueError:
-        return False
+__all__ = ["Table", "read_table", "read_column", "write_table", "read_points", "points_from_table",
+           "write_points", "check_output_format"]
 
 
-def read_table(path) -> tuple[np.ndarray, list[str] | None, list[int]]:
-    """Read a numeric CSV file.
+def _reader_of(path: Path):
+    head = magic(path, 4)
+    if head == PARQUET_MAGIC:
+        return read_parquet
+    if head == ZIP_MAGIC:
+        return read_npz
+    return read_delimited
+
+
+def read_table(path, *, columns=None, labels=None, delimiter: str | None = None) -> Table:
+    """Read a table of numbers from a CSV / TSV, Parquet or NPZ file.
+
+    Parameters
+    ----------
+    path : the file; its format is told by its first bytes, not its name
+    columns : None (every column is data, except ``labels``) or the names of the data columns,
+        in the order wanted; the other columns are ignored and listed in ``Table.ignored``
+    labels : name of a column read as it is stored (text files: the stripped cell text), one per row
+    delimiter : text files only: the one-character cell separator; None detects it
 
     Returns
     -------
-    rows : float64 array (n, m)
-    header : the column names, or None
-    lines : the 1-based line number of each row (for error messages)
+    Table with ``values`` (n, m) float64, all finite.
+
+    Raises
+    ------
+    InputError naming the file, the line (text) or row (Parquet, NPZ), the column number and name,
+    what is wrong and what was expected.
     """
+    path = check_readable(path)
+    reader = _reader_of(path)
+    if delimiter is not None and reader is not read_delimited:
+        raise InputError(f"{path}: delimiter applies to text tables, but this is a "
+                         f"{'Parquet' if reader is read_parquet else 'NPZ'} file", field="delimiter")
+    kwargs = {"delimiter": delimiter} if reader is read_delimited else {}
+    return reader(path, columns=columns, labels=labels, **kwargs)
+
+
+def read_column(path, name: str, *, delimiter: str | None = None) -> np.ndarray:
+    """The raw values of one column, one per row of :func:`read_table` on the same file.
+
+    Text files give the stripped cell strings (an empty cell is an error); Parquet and NPZ give the
+    stored values (e.g. int64 class numbers or strings). Other columns are not checked.
+    """
+    path = check_readable(path)
+    reader = _reader_of(path)
+    kwargs = {"delimiter": delimiter} if reader is read_delimited else {}
+    return reader(path, columns=[], labels=name, need_data=False, **kwargs).labels
+
+
+def _columns_of(data, names) -> dict[str, np.ndarray]:
+    if isinstance(data, dict):
+        if names is not None:
+            raise InputError("write_table: names are the keys of the dict of columns; do not pass names too",
+                             field="names")
+        cols = {str(k): np.asarray(v) for k, v in data.items()}
+    else:
+        values = np.asarray(data.detach().cpu() if isinstance(data, torch.Tensor) else data)
+        if values.ndim != 2:
+            raise InputError(f"write_table: expected a 2-D array (n, m) of values, got shape {values.shape}",
+                             field="data")
+        if names is None or len(names) != values.shape[1]:
+            raise InputError(f"write_table: expected {values.shape[1]} column names, got "
+                             f"{None if names is None else len(names)}", field="names")
+        cols = {str(n): values[:, j] for j, n in enumerate(names)}
+        if len(cols) != len(names):
+            raise InputError(f"write_table: column names must be distinct, got {list(names)}", field="names")
+    if not cols:
+        raise InputError("write_table: no columns to write", field="data")
+    lengths = {k: len(v) if v.ndim == 1 else None for k, v in cols.items()}
+    first = next(iter(cols))
+    for k, v in cols.items():
+        if v.ndim != 1 or len(v) != lengths[first]:
+            raise InputError(f"write_table: column {k!r} has shape {v.shape}, expected ({lengths[first]},) "
+                             "like every column", field=k)
+    return cols
+
+
+def _refuse_numeric_names(path: Path, cols) -> None:
+    """A text table's header must read back as a header: no name may be empty, padded or a number."""
+    for k in cols:
+        try:
+            float(k)
+            numeric = True
+        except ValueError:
+            numeric = False
+        if numeric or not k or k.strip() != k:
+            raise InputError(f"{path}: column name {k!r} would not read back as a header name (it is a number, "
+                             "empty, or has spaces around it); choose another name", field=k)
+
+
+def write_table(path, data, names=None, *, overwrite: bool = False) -> Path:
+    """Write named columns as CSV, TSV, Parquet or NPZ (by the extension), atomically.
+
+    Parameters
+    ----------
+    path : output file; ``.csv``, ``.tsv``, ``.parquet`` or ``.npz``
+    data : a 2-D array (n, m) with ``names`` (m names), or a dict name -> 1-D array (numbers or text)
+    overwrite : replace an existing file (default: refuse)
+
+    Floats are written in full precision (CSV / TSV: the shortest text that reads back to the same
+    double). A NaN is written as ``nan``, which :func:`read_table` refuses in a data column.
+    """
+    import pandas as pd
+
     path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: no such file")
-    try:
-        text = path.read_text()
-    except UnicodeDecodeError as e:
-        raise InputError(f"{path}: not a text file ({e})") from None
-    header = None
-    rows: list[list[float]] = []
-    lines: list[int] = []
-    width = None
-    for lineno, record in enumerate(csv.reader(text.splitlines()), start=1):
-        cells = [c.strip() for c in record]
-        if not cells or all(c == "" for c in cells) or cells[0].startswith("#"):
-            continue
-        if header is None and not rows and not any(_is_number(c) for c in cells):
-            header = cells
-            width = len(cells)
-            continue
-        if width is None:
-            width = len(cells)
-        if len(cells) != width:
-            what = "the header" if header is not None else "the first row"
-            raise InputError(f"{path}, line {lineno}: {len(cells)} columns, but {what} has {width}", row=len(rows))
-        values = []
-        for j, c in enumerate(cells):
-            try:
-                v = float(c)
-            except ValueError:
-                name = f" ({header[j]})" if header else ""
-                raise InputError(f"{path}, line {lineno}, column {j + 1}{name}: {c!r} is not a number",
-                                 row=len(rows), field=str(j)) from None
-            if not math.isfinite(v):
-                name = f" ({header[j]})" if header else ""
-                raise InputError(f"{path}, line {lineno}, column {j + 1}{name}: value {c!r} is not finite",
-                                 row=len(rows), field=str(j))
-            values.append(v)
-        rows.append(values)
-        lines.append(lineno)
-    if not rows:
-        raise InputError(f"{path}: no data rows (the file is empty or has only a header)")
-    return np.asarray(rows, dtype=np.float64), header, lines
+    fmt, _ = check_output_format(path, "table")
+    cols = _columns_of(data, names)
+    if fmt in ("csv", "tsv"):
+        _refuse_numeric_names(path, cols)
+    with atomic_path(path, overwrite=overwrite) as tmp:
+        if fmt == "npz":
+            with open(tmp, "wb") as f:
+                np.savez(f, **cols)
+        elif fmt == "parquet":
+            pd.DataFrame(cols).to_parquet(tmp, index=False)
+        else:
+            pd.DataFrame(cols).to_csv(tmp, sep="\t" if fmt == "tsv" else ",", index=False, na_rep="nan",
+                                      lineterminator="\n")
+    return path
 
 
 def read_points(path, space: Space, **options) -> torch.Tensor:
-    """Read a CSV file of points on ``space``; ``options`` go to ``space.from_rows`` (e.g. ``degrees=True``).
+    """Read a table of points on ``space``; ``options`` go to ``space.from_rows`` (e.g. ``degrees=True``).
 
     Errors name the file, the line and the problem.
     """
@@ -90,8 +169,12 @@ def read_points(path, space: Space, **options) -> torch.Tensor:
 
 
 def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
-    """Points on ``space`` from a table returned by :func:`read_table` (errors located in ``path``)."""
-    rows, _, lines = table
+    """Points on ``space`` from a :class:`Table` (or a ``(rows, header, lines)`` triple), errors located."""
+    if isinstance(table, Table):
+        rows, lines, unit = table.values, table.lines, table.unit
+    else:
+        rows, _, lines = table
+        unit = "line"
     space.check_file_options(options)
     expected = space.n_columns_for(**options)
     if rows.shape[1] != expected:
@@ -101,19 +184,22 @@ def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
         return space.from_rows(rows, **options)
     except InputError as e:
         if e.row is not None and 0 <= e.row < len(lines):
-            raise e.located(f"{path}, line {lines[e.row]}") from None
+            raise e.located(f"{path}, {unit} {int(lines[e.row])}") from None
         raise e.located(str(path)) from None
 
 
-def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, **options) -> Path:
-    """Write points as CSV with a header, atomically (temporary file, then rename)."""
+def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, names=None, **options) -> Path:
+    """Write points as a table with a header (format by extension), atomically.
+
+    ``names`` replaces the space's column names (e.g. the names of the columns the model was fitted on);
+    it must have one name per written column.
+    """
+    check_output_format(path, "table")
     rows = space.to_rows(x, **options)
     header = space.column_names(**options)
-    path = Path(path)
-    with atomic_path(path, overwrite=overwrite) as tmp:
-        with open(tmp, "w", newline="") as f:
-            w = csv.writer(f)
-            w.writerow(header)
-            for r in rows.tolist():
-                w.writerow([repr(float(v)) for v in r])
-    return path
+    if names is not None:
+        if len(names) != len(header):
+            raise InputError(f"{path}: {len(names)} column names for {len(header)} columns", field="names")
+        header = list(names)
+    return write_table(path, np.asarray(torch.as_tensor(rows).detach().cpu(), dtype=np.float64), header,
+                       overwrite=overwrite)

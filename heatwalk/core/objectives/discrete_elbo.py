@@ -204,8 +204,11 @@ class DiscreteELBO(Objective):
         m = x_rec.shape[0]
         xr = sp.sample_forward(x_rec, sch.t_min, generator)
         tr = torch.full((m,), sch.t_min, dtype=torch.float64)
-        both = None if labels is None else torch.cat([labels, labels_rec])
-        log_p_all = self.log_x0_probs(net, torch.cat([xt, xr]), torch.cat([t, tr]), both)
+        states, times = torch.cat([xt, xr]), torch.cat([t, tr])
+        if labels is None:
+            log_p_all = self.log_x0_probs(net, states, times)
+        else:
+            log_p_all = self.log_x0_probs(net, states, times, torch.cat([labels, labels_rec]))
         log_p, log_r = log_p_all[: x0.shape[0]], log_p_all[x0.shape[0]:]
         integral = (sch.t_max - sch.t_min) * self._integrand(xt, x0, t, log_p)
         recon = -torch.gather(log_r, 2, x_rec.unsqueeze(-1)).squeeze(-1).sum(-1)

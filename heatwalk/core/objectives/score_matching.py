@@ -75,9 +75,17 @@ class ScoreMatching(Objective):
         (an ODE log-likelihood, not a bound). ``labels``: class indices, one per point (conditional
         likelihood) or None (the unconditional model).
         """
-        cond = Conditioning(labels=labels)
         with torch.no_grad():
-            out = log_likelihood(self.field(net, cond), x, **options)
+            if labels is None:
+                out = log_likelihood(self.field(net), x, **options)
+            else:  # one field per block of points, each with its own labels
+                x = self.space.validate(x)
+                size = options.pop("batch_size", 1024)
+                parts = [log_likelihood(self.field(net, Conditioning(labels=labels[i:i + size])), x[i:i + size],
+                                        batch_size=size, **options) for i in range(0, x.shape[0], size)]
+                out = {"log_prob": torch.cat([p["log_prob"] for p in parts]),
+                       "stderr": torch.cat([p["stderr"] for p in parts]), "divergence": parts[0]["divergence"],
+                       "steps": [k for p in parts for k in p["steps"]]}
         out["bound"] = False
         return out
 
