@@ -60,6 +60,7 @@ from abc import ABC, abstractmethod
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
+import numpy as np
 import torch
 
 from heatwalk.errors import InputError
@@ -131,19 +132,41 @@ def numeric_table(x, what: str = "points"):
     return np.array(frame.to_numpy(dtype=np.float64), copy=True)  # writable: torch refuses read-only memory
 
 
-def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
-    """Convert ``x`` (array, tensor, pandas DataFrame) to a float64 tensor (n, *ambient_shape), checked.
+def real_tensor(x, what: str = "points", dtype: torch.dtype | None = DTYPE, expected: str = "real numbers"
+                ) -> torch.Tensor:
+    """``x`` (a tensor, a numpy array or nested lists) as a tensor of real numbers, converted to ``dtype``
+    (None: keep an integer or float dtype as it is).
 
-    Raises :class:`InputError` for a wrong shape, no points, a complex or boolean array, and naming the
+    Refuses with :class:`InputError` booleans, complex numbers and anything that is not an array of numbers
+    (strings, ragged lists, Python integers beyond 64 bits). Lists are read through numpy, so Python floats
+    keep their 64 bits.
+    """
+    if isinstance(x, torch.Tensor):
+        t = x
+    else:
+        try:
+            a = np.asarray(x)
+        except (ValueError, TypeError) as e:
+            raise InputError(f"{what}: expected an array of numbers, got {type(x).__name__} ({e})") from None
+        if a.dtype.kind not in "biufc":
+            raise InputError(f"{what}: expected an array of numbers, got {type(x).__name__} of {a.dtype} "
+                             f"(text or mixed entries?)")
+        if a.dtype.kind == "u" and a.dtype.itemsize == 8:
+            a = a.astype(np.float64) if a.size and int(a.max()) >= 2**63 else a.astype(np.int64)
+        t = torch.as_tensor(a)
+    if t.dtype == torch.bool or t.is_complex():
+        raise InputError(f"{what}: expected {expected}, got dtype {str(t.dtype).replace('torch.', '')}")
+    return t if dtype is None or t.dtype == dtype else t.to(dtype)
+
+
+def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.Tensor:
+    """Convert ``x`` to a float64 tensor of shape (n, *ambient_shape), checking type, shape and finiteness.
+
+    ``x`` may be an array, a tensor, nested lists or a pandas DataFrame. Raises :class:`InputError` for
+    booleans, complex numbers and non-numbers, an empty batch ("no points"), a wrong shape, or naming the
     first row that is NaN or infinite.
     """
-    x = numeric_table(x, what)
-    if isinstance(x, torch.Tensor) and (x.is_complex() or x.dtype == torch.bool):
-        raise InputError(f"{what}: expected real numbers, got a tensor of dtype {x.dtype}")
-    try:
-        t = torch.as_tensor(x, dtype=DTYPE)
-    except (TypeError, ValueError, RuntimeError) as e:
-        raise InputError(f"{what}: cannot be read as an array of real numbers ({type(e).__name__}: {e})") from None
+    t = real_tensor(numeric_table(x, what), what)
     k = len(ambient_shape)
     if t.dim() == k:
         t = t.unsqueeze(0)
@@ -243,7 +266,10 @@ class Space(ABC):
     def from_rows(self, rows, **options) -> torch.Tensor:
         """Turn an (n, n_columns) float array read from a file into validated points."""
         self.check_file_options(options)
-        rows = torch.as_tensor(rows, dtype=DTYPE)
+        rows = real_tensor(rows, "rows")
+        if rows.dim() != 2 or rows.shape[1] != self.n_columns:
+            raise InputError(f"rows: expected a table of shape (n, {self.n_columns}) for {self!r}, got "
+                             f"{tuple(rows.shape)}")
         return self.validate(rows.reshape(rows.shape[0], *self.ambient_shape))
 
     def to_rows(self, x: torch.Tensor, **options) -> torch.Tensor:

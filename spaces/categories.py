@@ -38,10 +38,13 @@ from heatwalk.errors import InputError
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
-from heatwalk.spaces.base import GivenPart, Option
+from heatwalk.spaces.base import GivenPart, Option, real_tensor
 from heatwalk.spaces.finite import FiniteStateSpace
 
 PROCESSES = ("uniform", "absorbing", "rates")
+#: most states a space takes: the chain keeps dense K x K matrices (128 MB of float64 at this K), and each
+#: sequence position costs the network K inputs and outputs
+MAX_STATES = 4096
 SEQUENCE_FORMATS = ("auto", "fasta", "text")
 
 
@@ -93,7 +96,7 @@ class Categories(FiniteStateSpace):
 
     def __init__(self, K: int, L: int, process: str | None = None, rates=None, alphabet=None,
                  variable_length: bool = False):
-        check_int("Categories: K (number of states)", K, minimum=2)
+        check_int("Categories: K (number of states)", K, minimum=2, maximum=MAX_STATES)
         check_positive_int("Categories: L (sequence length)", L)
         if not isinstance(variable_length, bool):
             raise InputError(f"Categories: variable_length must be True or False, got {variable_length!r}",
@@ -182,25 +185,28 @@ class Categories(FiniteStateSpace):
 
         Raises :class:`InputError` naming the first bad row and position.
         """
-        t = torch.as_tensor(x)
+        t = real_tensor(x, "sequences", dtype=None, expected="integer state codes")
         if t.dim() == 1 and t.shape[0] == self.L:
             t = t.unsqueeze(0)
         if t.dim() != 2 or t.shape[1] != self.L:
             raise InputError(f"sequences: expected shape (n, {self.L}), got {tuple(t.shape)}")
-        if t.dtype == torch.bool or t.is_complex():
-            raise InputError(f"sequences: expected integer codes, got dtype {t.dtype}")
+        if t.shape[0] == 0:
+            raise InputError(f"sequences: no points (an empty array of shape {tuple(t.shape)})")
         if t.is_floating_point():
             bad = ~torch.isfinite(t) | (t != torch.round(t))
             if bool(bad.any()):
                 i, j = map(int, bad.nonzero()[0])
                 raise InputError(f"row {i}, position {j}: {float(t[i, j])!r} is not an integer state code",
                                  row=i, field=str(j))
-        t = t.to(torch.int64) if t.is_floating_point() else t.long()
+        # range checked in the input's own dtype, so a float 1e20 or an unsigned 2^63 is reported as itself
         bad = (t < 0) | (t >= self.K)
         if bool(bad.any()):
             i, j = map(int, bad.nonzero()[0])
-            raise InputError(f"row {i}, position {j}: state {int(t[i, j])} is outside [0, {self.K})",
+            v = t[i, j].item()
+            shown = int(v) if abs(v) < 2**53 else v
+            raise InputError(f"row {i}, position {j}: state {shown} is outside [0, {self.K})",
                              row=i, field=str(j))
+        t = t.to(torch.int64)
         if self.end_state is not None:
             self._check_ends(t)
         return t

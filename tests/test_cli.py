@@ -34,7 +34,7 @@ def test_fit_then_sample_roundtrip(tmp_path, angles_csv, capsys):
     code, out, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--train-steps", "30",
                           "--batch-size", "64", "--hidden", "32", "--quiet"], capsys)
     assert code == 0, err
-    assert (model / "model.json").is_file() and (model / "weights.pt").is_file()
+    assert (model / "model.json").is_file() and (model / "weights.safetensors").is_file()
     samples = tmp_path / "s.csv"
     code, out, err = run(["sample", str(model), "--n", "40", "--out", str(samples), "--reverse-steps", "20", "--quiet"],
                          capsys)

@@ -3,12 +3,15 @@
 Folder layout written by :meth:`Model.save`::
 
     MODEL_DIR/
-      model.json     space, objective and network configs, training record
-      weights.pt     network state dict (tensors only; loaded with weights_only=True)
-      losses.csv     the training loss of every step (columns step, loss), when known
+      model.json           space, objective and network configs, training record
+      weights.safetensors  network state dict in the safetensors format (no pickle)
+      losses.csv           the training loss of every step (columns step, loss), when known
 
-Loading never unpickles code: ``torch.load(..., weights_only=True)`` accepts
-only tensors and plain containers.
+:func:`load` also reads folders of earlier versions, whose weights are
+``weights.pt`` (read with ``torch.load(..., weights_only=True)``, which accepts
+only tensors and plain containers). Loading never runs code from the files and
+checks everything before it allocates the network (see
+:mod:`heatwalk.core.model_files`).
 """
 
 from __future__ import annotations
@@ -23,10 +26,13 @@ from torch import nn
 from heatwalk.checks import check_choice, check_positive_int
 from heatwalk.core.conditioning import GIVEN_METHODS, Conditioning, check_weight
 from heatwalk.core.labels import indices_for
-from heatwalk.core.networks import build_network, network_name
+from heatwalk.core.model_files import meta_network, read_model_config, read_weights, weights_path, write_weights
+from heatwalk.core.networks import network_name
 from heatwalk.core.objectives import make_objective
+from heatwalk.core.result_checks import (arithmetic_failures_as_input_errors, check_finite_log_prob,
+                                         check_finite_samples)
 from heatwalk.errors import InputError
-from heatwalk.io.atomic import atomic_dir
+from heatwalk.io.atomic import WEIGHT_FILES, atomic_dir
 from heatwalk.samplers import SAMPLERS
 from heatwalk.spaces import from_config
 from heatwalk.spaces.base import CAPABILITIES, Space
@@ -86,7 +92,7 @@ class Model:
     def sample(self, n: int, steps: int = 500, sampler: str | None = None, seed: int | None = 0,
                generator: torch.Generator | None = None, progress: bool = True, *, label=None,
                guidance: float = 1.0, given: dict | None = None, given_method: str | None = None, guide=None,
-               guide_scale: float = 1.0, **options) -> torch.Tensor:
+               guide_scale: float = 1.0, check_finite: bool = True, **options) -> torch.Tensor:
         """Draw ``n`` points with ``steps`` reverse steps of ``sampler`` (default: the objective's).
 
         Conditioning (see :mod:`heatwalk.core.conditioning`):
@@ -97,6 +103,9 @@ class Model:
             sequence positions, product factors), one value or one per sample; method "replacement" or
             "reconstruction" (default: reconstruction where the space supports it, else replacement).
         guide, guide_scale : ``fn(x0_hat) -> log-likelihood per sample`` steering samples, and its weight λ.
+        check_finite : refuse (:class:`~heatwalk.core.result_checks.NonFiniteResult`, an InputError) samples
+            with a NaN or infinite coordinate, naming the likely causes; False returns them as drawn, for
+            diagnosing a sampler.
         """
         check_positive_int("n", n)
         entry = self.sampler(sampler)
@@ -105,8 +114,14 @@ class Model:
         if generator is None:
             generator = torch.Generator().manual_seed(0 if seed is None else seed)
         field = self.objective.field(self.network, None if cond.empty else cond)
-        with torch.no_grad():
-            return entry.function(field, n, steps=steps, generator=generator, progress=progress, **options)
+        with torch.no_grad(), arithmetic_failures_as_input_errors("sampling"):
+            x = entry.function(field, n, steps=steps, generator=generator, progress=progress, **options)
+        if not check_finite:
+            return x
+        name = sampler or self.objective.default_sampler
+        others = sorted(k for k, s in SAMPLERS.items() if k != name
+                        and s.applies_to(self.objective.field_kind, self.space.capabilities))
+        return check_finite_samples(x, n, name, steps, others)
 
     def conditioning(self, n: int, *, label=None, guidance: float = 1.0, given=None, given_method=None, guide=None,
                      guide_scale: float = 1.0) -> Conditioning:
@@ -138,7 +153,9 @@ class Model:
         x = self.space.validate(x)
         labels = indices_for(self.classes, label, x.shape[0])
         with torch.no_grad():
-            return self.objective.elbo(self.network, x, generator, n_time_samples, labels=labels, **options)
+            est = self.objective.elbo(self.network, x, generator, n_time_samples, labels=labels, **options)
+        check_finite_log_prob({"log_prob": est.nats}, what="ELBO")
+        return est
 
     def log_prob(self, x, label=None, **options) -> dict:
         """Log-likelihood of points ``x`` in nats, w.r.t. the space's reference measure.
@@ -148,11 +165,11 @@ class Model:
         ``label`` (one class or one per point) gives the conditional likelihood of a labelled model.
         ``options`` go to the objective (e.g. ``method``, ``rtol``, ``divergence``, ``n_probes``).
         """
-        if label is None:
-            return self.objective.log_prob(self.network, x, **options)
-        x = self.space.validate(x)
-        return self.objective.log_prob(self.network, x, labels=indices_for(self.classes, label, x.shape[0]),
-                                       **options)
+        if label is not None:
+            x = self.space.validate(x)
+            options["labels"] = indices_for(self.classes, label, x.shape[0])
+        with arithmetic_failures_as_input_errors("log-likelihood"):
+            return check_finite_log_prob(self.objective.log_prob(self.network, x, **options))
 
     # ----- persistence ---------------------------------------------------------------------
     def config(self) -> dict:
@@ -165,20 +182,22 @@ class Model:
         }
 
     def save(self, path, *, overwrite: bool = False, extra_files: dict[str, str] | None = None) -> Path:
-        """Write the model folder atomically; refuses to replace an existing folder unless ``overwrite``.
+        """Write the model folder atomically (model.json, weights.safetensors).
 
-        ``extra_files`` ({name: text}) are written into the folder too (e.g. the CLI's resolved config).
+        ``overwrite`` replaces an existing model folder, report folder or empty folder, nothing else
+        (:func:`heatwalk.io.atomic.atomic_dir`). ``extra_files`` ({name: text}) are written into the
+        folder too (e.g. the CLI's resolved config).
         """
         path = Path(path)
         with atomic_dir(path, overwrite=overwrite) as tmp:
             (tmp / "model.json").write_text(json.dumps(self.config(), indent=2, sort_keys=True) + "\n")
-            torch.save(self.network.state_dict(), tmp / "weights.pt")
+            write_weights(tmp, self.network)
             if self.losses is not None:
                 first = int(self.record.get("resumed_from_step", 0)) + 1
                 rows = "".join(f"{first + k},{v!r}\n" for k, v in enumerate(self.losses.tolist()))
                 (tmp / LOSSES_NAME).write_text("step,loss\n" + rows)
             for name, text in (extra_files or {}).items():
-                if Path(name).name != name or name in ("model.json", "weights.pt", LOSSES_NAME):
+                if Path(name).name != name or name in ("model.json", *WEIGHT_FILES, LOSSES_NAME):
                     raise InputError(f"extra file name {name!r} must be a plain file name", field="extra_files")
                 (tmp / name).write_text(text)
         return path
@@ -197,30 +216,53 @@ class Model:
         return f"Model({', '.join(parts)})"
 
 
+def _rebuilt(where: Path, key: str, build):
+    """``build()`` with its errors named after the model.json key they come from."""
+    try:
+        return build()
+    except InputError as e:
+        raise InputError(f"{where}: key {key!r}: {e.message}", field=key) from None
+    except (TypeError, ValueError, KeyError, AttributeError) as e:
+        raise InputError(f"{where}: key {key!r} does not describe a heatwalk {key} ({type(e).__name__}: {e})",
+                         field=key) from None
+
+
+def _check_network_fits(model: Model, where: Path) -> None:
+    """One reverse step on 2 points: a network whose sizes do not fit the space and objective fails here."""
+    field = model.objective.field(model.network)
+    try:
+        with torch.no_grad(), torch.random.fork_rng(devices=[]):
+            model.sampler().function(field, 2, steps=1, generator=torch.Generator().manual_seed(0), progress=False)
+    except (RuntimeError, IndexError) as e:
+        raise InputError(f"{where}: the network does not fit the space {model.space!r} and its objective "
+                         f"({str(e).splitlines()[0]})", field="network") from None
+
+
 def load(path) -> Model:
-    """Load a model folder written by :meth:`Model.save`. Never executes code from the files."""
+    """Load a model folder written by :meth:`Model.save` (or an earlier version). Never executes code from the files.
+
+    Checked before any network memory is allocated: model.json's schema, the network's size, and the
+    weights file's tensor names, shapes and dtypes; then the weights must be finite and the network must
+    fit the space (one reverse step on two points).
+    """
     path = Path(path)
-    cfg_path, w_path = path / "model.json", path / "weights.pt"
-    if not cfg_path.is_file() or not w_path.is_file():
-        raise InputError(f"{path}: not a heatwalk model folder (needs model.json and weights.pt)")
-    try:
-        cfg = json.loads(cfg_path.read_text())
-    except json.JSONDecodeError as e:
-        raise InputError(f"{cfg_path}: not valid JSON ({e})") from None
-    if cfg.get("format_version") != FORMAT_VERSION:
-        raise InputError(f"{cfg_path}: format_version {cfg.get('format_version')!r}, expected {FORMAT_VERSION}")
-    space = from_config(cfg["space"])
-    objective = make_objective(space, cfg["objective"])
-    net = build_network(cfg["network"]["name"], cfg["network"]["config"])
-    try:
-        state = torch.load(w_path, map_location="cpu", weights_only=True)
-    except Exception as e:  # a file that is not a plain tensor archive
-        raise InputError(f"{w_path}: cannot be read as plain tensors ({type(e).__name__}: {e})") from None
-    net.load_state_dict(state, strict=True)
+    cfg_path, w_path = path / "model.json", weights_path(path)
+    if not cfg_path.is_file() or w_path is None:
+        raise InputError(f"{path}: not a heatwalk model folder (needs model.json and weights.safetensors)")
+    cfg = read_model_config(cfg_path)
+    if cfg["format_version"] != FORMAT_VERSION:
+        raise InputError(f"{cfg_path}: format_version {cfg['format_version']!r}, expected {FORMAT_VERSION}",
+                         field="format_version")
+    space = _rebuilt(cfg_path, "space", lambda: from_config(cfg["space"]))
+    objective = _rebuilt(cfg_path, "objective", lambda: make_objective(space, cfg["objective"]))
+    net = meta_network(cfg["network"]["name"], cfg["network"]["config"], where=cfg_path)
+    net.load_state_dict(read_weights(path, net), strict=True, assign=True)
     record = cfg.get("record") or {}
     losses_path = path / LOSSES_NAME
     losses = _read_losses(losses_path, int(record.get("resumed_from_step", 0)) + 1) if losses_path.is_file() else None
-    return Model(space, objective, net, record, losses=losses)
+    model = Model(space, objective, net, record, losses=losses)
+    _check_network_fits(model, cfg_path)
+    return model
 
 
 def _read_losses(path: Path, first_step: int) -> torch.Tensor:

@@ -7,12 +7,21 @@ differs between spaces lives in the space and its objective.
 
 Reproducibility: all randomness (network initialisation, batches, diffusion
 times and noise) comes from ``seed``. A checkpoint stores the network, EMA,
-optimiser and generator states, so a run resumed from it ends with exactly the
-weights of an uninterrupted run.
+optimiser and generator states and the losses so far, so a run resumed from it
+ends with exactly the weights (and training record) of an uninterrupted run.
+A checkpoint also stores the run's settings and a fingerprint of its data (the
+number of points and a SHA-256 hash of the validated points and labels):
+resuming with other settings or other data is refused.
+
+Interruption: SIGINT and SIGTERM stop the loop at the end of the current step
+(:mod:`heatwalk.core.interrupts`); with checkpoints on, a checkpoint of that
+step is written first, then :class:`~heatwalk.core.interrupts.Interrupted`
+(a ``KeyboardInterrupt``) is raised.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
 import time
@@ -23,12 +32,16 @@ import torch
 from tqdm.auto import tqdm
 
 from heatwalk.checks import check_number, check_positive_int
+from heatwalk.core.interrupts import Interrupted, stop_requests
 from heatwalk.core.labels import encode_labels
 from heatwalk.core.model import Model
+from heatwalk.core.model_files import check_parameter_count, load_plain_tensors
 from heatwalk.core.networks import network_name
 from heatwalk.core.objectives import make_objective
+from heatwalk.core.result_checks import check_finite_loss
 from heatwalk.errors import InputError
-from heatwalk.io.atomic import atomic_path
+from heatwalk.io.atomic import atomic_path, remove_stale_temporaries
+from heatwalk.notices import warn
 
 CHECKPOINT_NAME = "checkpoint.pt"
 #: the training record's loss is the mean over this many last steps
@@ -62,8 +75,11 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     seed : seeds network initialisation, batches and diffusion noise.
     network : options of the objective's default network (e.g. ``{"hidden": 256, "depth": 3}``).
     time_range : (t_min, t_max) overriding the space's default.
-    checkpoint_dir : folder for periodic checkpoints (every ``checkpoint_every`` steps and at the end);
-        with ``resume=True`` training continues from the checkpoint found there.
+    checkpoint_dir : folder for periodic checkpoints (every ``checkpoint_every`` steps, at the end, and when
+        stopped by SIGINT / SIGTERM); with ``resume=True`` training continues from the checkpoint found
+        there, which must come from the same settings and data. With no checkpoint there, training starts
+        from step 0 with a warning (so a job that always passes ``resume=True`` works on its first run).
+        A finished run resumed returns the finished model at once.
     threads : torch intra-op threads for the run (default: leave torch's setting).
     labels : one class name (int or string) per data point: the model learns the law given the class and,
         with each label dropped with probability ``label_dropout`` (default 0.1), the unconditional law,
@@ -82,25 +98,27 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     classes, label_idx = (None, None) if labels is None else encode_labels(labels, n_data)
     objective = make_objective(space, time_range=time_range, classes=classes, label_dropout=label_dropout,
                                inpainting=inpainting)
+    if resume and checkpoint_dir is None:
+        raise InputError("resume=True needs a checkpoint_dir", field="resume")
+    ckpt_path = _checkpoint_path(checkpoint_dir)
     run = _start(objective, network, lr, steps, seed)
     run_config = {
         "space": space.config(), "objective": objective.config(),
         "network": {"name": network_name(run.net), "config": run.net.config()},
         "steps": steps, "batch_size": batch_size, "lr": lr, "ema_decay": ema_decay, "seed": seed,
-        "n_data": n_data,
+        "n_data": n_data, "data": data_fingerprint(x_data, label_idx),
     }
-    ckpt_path = Path(checkpoint_dir) / CHECKPOINT_NAME if checkpoint_dir is not None else None
-    start = 0
+    start, losses = 0, []
     if resume:
-        if ckpt_path is None:
-            raise InputError("resume=True needs a checkpoint_dir", field="resume")
         if ckpt_path.is_file():
-            start = _restore(ckpt_path, run_config, run)
+            start, losses = _restore(ckpt_path, run_config, run)
+        else:
+            warn(f"nothing to resume: no checkpoint in {checkpoint_dir}; training starts from step 0")
 
     t0 = time.perf_counter()
-    losses = _train(objective, run, (x_data, label_idx), start, steps, batch_size, ema_decay, progress,
-                    lambda step: _save_checkpoint(ckpt_path, run_config, step, run) if ckpt_path else None,
-                    checkpoint_every)
+    _train(objective, run, (x_data, label_idx), start, steps, batch_size, ema_decay, progress,
+           lambda step: _save_checkpoint(ckpt_path, run_config, step, run, losses) if ckpt_path else None,
+           checkpoint_every, losses)
     elapsed = time.perf_counter() - t0
     with torch.no_grad():
         for p, e in zip(run.net.parameters(), run.ema):
@@ -126,8 +144,43 @@ def _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads)
         check_positive_int("threads", threads)
 
 
+def data_fingerprint(x_data, label_idx=None) -> dict:
+    """Number of points and SHA-256 of the validated points (each factor's dtype, shape and bytes) and labels."""
+    h = hashlib.sha256()
+    parts = list(x_data) if isinstance(x_data, (tuple, list)) else [x_data]
+    for part in parts + ([label_idx] if label_idx is not None else []):
+        t = part.detach().cpu().contiguous()
+        h.update(f"{t.dtype}{tuple(t.shape)};".encode())
+        h.update(t.reshape(-1).view(torch.uint8).numpy().data if t.numel() else b"")
+    return {"n_points": int(parts[0].shape[0]), "sha256": h.hexdigest()}
+
+
+def _checkpoint_path(checkpoint_dir) -> Path | None:
+    """``checkpoint_dir / checkpoint.pt``, the folder made if needed, stale temporaries of earlier crashes removed."""
+    if checkpoint_dir is None:
+        return None
+    folder = Path(checkpoint_dir)
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"checkpoint folder {folder} is a file, not a folder", field="checkpoint_dir")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise InputError(f"checkpoint folder {folder} cannot be made ({e.strerror or e})",
+                         field="checkpoint_dir") from None
+    path = folder / CHECKPOINT_NAME
+    if path.exists() and not path.is_file():
+        raise InputError(f"{path} is not a file; remove it or use another checkpoint folder", field="checkpoint_dir")
+    remove_stale_temporaries(path)
+    return path
+
+
 def _start(objective, network: dict | None, lr: float, steps: int, seed: int) -> _Run:
-    """Network (initialised from ``seed``), EMA copy, Adam with a cosine schedule to lr/10, generator."""
+    """Network (initialised from ``seed``), EMA copy, Adam with a cosine schedule to lr/10, generator.
+
+    The network is first built on the meta device (no memory) to refuse an oversized one.
+    """
+    with torch.random.fork_rng(devices=[]), torch.device("meta"):
+        check_parameter_count(objective.default_network(**(network or {})))
     with torch.random.fork_rng(devices=[]):
         torch.manual_seed(seed)
         net = objective.default_network(**(network or {}))
@@ -138,18 +191,24 @@ def _start(objective, network: dict | None, lr: float, steps: int, seed: int) ->
     return _Run(net, ema, opt, sched, torch.Generator().manual_seed(seed))
 
 
-def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, progress, save, every) -> list[float]:
-    """Adam steps start … steps-1 with EMA updates; ``save(step)`` at checkpoint times. Returns the losses.
+def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, progress, save, every, losses) -> None:
+    """Adam steps start … steps-1 with EMA updates, each loss appended to ``losses``; ``save(step)`` at
+    checkpoint times and, on SIGINT / SIGTERM, at the end of the current step before raising Interrupted.
 
     ``data`` is (points, class indices or None).
     """
+    with stop_requests() as stop:
+        _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, save, every, losses, stop)
+
+
+def _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, save, every, losses, stop):
     x_data, label_idx = data
     space, n_data = objective.space, objective.space.n_points(data[0])
-    losses: list[float] = []
     params = list(run.net.parameters())
+    lr = run.opt.param_groups[0].get("initial_lr", run.opt.param_groups[0]["lr"])
     run.net.train()
     bar = tqdm(range(start, steps), desc="fitting", disable=not progress, initial=start, total=steps)
-    running = None
+    running = losses[-1] if losses else None
     for step in bar:
         idx = torch.randint(n_data, (batch_size,), generator=run.gen)
         if label_idx is None:
@@ -165,20 +224,20 @@ def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, prog
             # keeps a share decay^steps of the random initial weights in the average
             decay = min(ema_decay, (1.0 + step) / (10.0 + step))
             torch._foreach_lerp_(run.ema, [p.detach() for p in params], 1.0 - decay)
-        value = float(loss.detach())
-        if not math.isfinite(value):
-            raise FloatingPointError(f"training loss became {value} at step {step + 1}; lower the learning rate")
+        value = check_finite_loss(float(loss.detach()), step + 1, lr)
         losses.append(value)
         running = value if running is None else 0.98 * running + 0.02 * value
         if progress and (step % 25 == 0 or step == steps - 1):
             bar.set_postfix(loss=f"{running:.4f}")
-        if (step + 1) % every == 0 or step + 1 == steps:
-            save(step + 1)
+        periodic = (step + 1) % every == 0 or step + 1 == steps
+        written = save(step + 1) if periodic else None
+        if stop.requested:
+            bar.close()
+            raise Interrupted(stop.signum, step + 1, written if periodic else save(step + 1))
     bar.close()
-    return losses
 
 
-def _save_checkpoint(path: Path, run_config, step, run: _Run):
+def _save_checkpoint(path: Path, run_config, step, run: _Run, losses) -> Path:
     state = {
         "run_config": json.dumps(run_config, sort_keys=True),
         "step": step,
@@ -187,26 +246,63 @@ def _save_checkpoint(path: Path, run_config, step, run: _Run):
         "optimizer": run.opt.state_dict(),
         "lr_schedule": run.sched.state_dict(),
         "generator": run.gen.get_state(),
+        "losses": torch.tensor(losses, dtype=torch.float64),
     }
     with atomic_path(path) as tmp:
         torch.save(state, tmp)
+    return path
 
 
-def _restore(path: Path, run_config, run: _Run) -> int:
+_CHECKPOINT_KEYS = {"run_config": str, "step": int, "network": dict, "ema": list, "optimizer": dict,
+                    "lr_schedule": dict, "generator": torch.Tensor, "losses": torch.Tensor}
+
+
+def _read_checkpoint(path: Path, run_config) -> dict:
+    """The checkpoint's contents, checked for its keys and types and for coming from this run and data."""
+    state = load_plain_tensors(path, "heatwalk checkpoint")
+    if not isinstance(state, dict):
+        raise InputError(f"{path}: not a heatwalk checkpoint (expected a table of named entries)")
+    for key, kind in _CHECKPOINT_KEYS.items():
+        if not isinstance(state.get(key), kind):
+            raise InputError(f"{path}: not a heatwalk checkpoint of this version (entry {key!r} is missing or "
+                             f"not a {kind.__name__}); use another checkpoint folder", field=key)
     try:
-        state = torch.load(path, map_location="cpu", weights_only=True)
-    except Exception as e:
-        raise InputError(f"{path}: cannot be read as a checkpoint ({type(e).__name__}: {e})") from None
-    saved = json.loads(state["run_config"])
-    if saved != json.loads(json.dumps(run_config, sort_keys=True)):
-        diff = sorted(k for k in set(saved) | set(run_config) if saved.get(k) != run_config.get(k))
-        raise InputError(f"{path}: checkpoint was made by a different run (differs in {diff}); "
-                         "resume with the same settings or use another checkpoint folder")
-    run.net.load_state_dict(state["network"])
-    with torch.no_grad():
-        for e, s in zip(run.ema, state["ema"]):
-            e.copy_(s)
-    run.opt.load_state_dict(state["optimizer"])
-    run.sched.load_state_dict(state["lr_schedule"])
-    run.gen.set_state(state["generator"])
-    return int(state["step"])
+        saved = json.loads(state["run_config"])
+    except json.JSONDecodeError:
+        raise InputError(f"{path}: the checkpoint's settings are not valid JSON (a damaged file)") from None
+    current = json.loads(json.dumps(run_config, sort_keys=True))
+    if not isinstance(saved, dict) or saved != current:
+        saved = saved if isinstance(saved, dict) else {}
+        diff = sorted(k for k in set(saved) | set(current) if saved.get(k) != current.get(k))
+        if diff == ["data"] and saved.get("n_data") == current["n_data"]:
+            why = (f"it was made with different data ({current['n_data']} points in both, but their contents "
+                   f"differ)" if "data" in saved else "it was made by an earlier heatwalk that did not record "
+                   "which data it was fitted to")
+        else:
+            why = f"it was made by a different run (differs in {', '.join(diff)})"
+        raise InputError(f"{path}: cannot resume: {why}; resume with the same settings and data, or use another "
+                         f"checkpoint folder", field="resume")
+    return state
+
+
+def _restore(path: Path, run_config, run: _Run) -> tuple[int, list[float]]:
+    """Load the checkpoint into ``run``; returns (steps done, losses so far)."""
+    state = _read_checkpoint(path, run_config)
+    try:
+        run.net.load_state_dict(state["network"])
+        if len(state["ema"]) != len(run.ema):
+            raise RuntimeError(f"{len(state['ema'])} averaged tensors for {len(run.ema)} parameters")
+        with torch.no_grad():
+            for e, s in zip(run.ema, state["ema"]):
+                e.copy_(s)
+        run.opt.load_state_dict(state["optimizer"])
+        run.sched.load_state_dict(state["lr_schedule"])
+        run.gen.set_state(state["generator"])
+    except (RuntimeError, KeyError, ValueError, TypeError, IndexError) as e:
+        raise InputError(f"{path}: the checkpoint's tensors do not fit this run's network or optimiser "
+                         f"({str(e).splitlines()[0]}); it is damaged: use another checkpoint folder") from None
+    step, losses = int(state["step"]), state["losses"].tolist()
+    if not (0 <= step <= run_config["steps"] and len(losses) == step):
+        raise InputError(f"{path}: the checkpoint's step {step} (with {len(losses)} losses) does not fit a run of "
+                         f"{run_config['steps']} steps; it is damaged: use another checkpoint folder")
+    return step, losses

@@ -70,8 +70,10 @@ def _fit_and_sample(name, space, out):
         out[f"{name}/weights/{k}"] = p
     for sampler, opts in (("geodesic_random_walk", {}), ("predictor_corrector", {}),
                           ("probability_flow", {"method": "rk4"})):
+        # the samplers' output as drawn, NaN included (simplex3 with probability_flow: this 2-layer model fitted
+        # for a few steps is under-trained, and Model.sample refuses such samples by default)
         out[f"{name}/samples/{sampler}"] = model.sample(12, steps=15, sampler=sampler, seed=7, progress=False,
-                                                        **opts)
+                                                        check_finite=False, **opts)
     ll = model.log_prob(data[:4], method="rk4", steps=12)
     out[f"{name}/log_prob_rk4"] = ll["log_prob"]
     ll = model.log_prob(data[:4], method="dopri5", rtol=1e-4, atol=1e-5)
