@@ -74,6 +74,8 @@ import math
 import numpy as np
 import torch
 
+from heatwalk.kernels.constants import on
+
 LOG_VOLUME = math.log(8.0 * math.pi**2)
 PI = math.pi
 #: π - PI (the low part of π in double-double)
@@ -289,13 +291,13 @@ def _solve_in_cells(target: torch.Tensor, cdf: torch.Tensor, coef_j: torch.Tenso
     dev = target.device
     f_lo = cdf.gather(1, j.unsqueeze(-1)).squeeze(-1)
     r = target - f_lo  # CDF mass to find inside the cell
-    fine = coef_j @ _SUB_VALUES.to(dev)  # (n, N_SUB + 1): the cell polynomial at the sub-edges
+    fine = coef_j @ on(_SUB_VALUES, dev)  # (n, N_SUB + 1): the cell polynomial at the sub-edges
     m = (torch.searchsorted(fine, r.unsqueeze(-1), right=True).squeeze(-1) - 1).clamp(0, N_SUB - 1)
     g_lo = fine.gather(1, m.unsqueeze(-1)).squeeze(-1)
     g_hi = fine.gather(1, (m + 1).unsqueeze(-1)).squeeze(-1)
     frac = ((r - g_lo) / (g_hi - g_lo).clamp_min(1e-300)).clamp(0, 1)
     s = -1 + (2.0 / N_SUB) * (m.to(torch.float64) + torch.where((j == 0) & (m == 0), frac.pow(1 / 3), frac))
-    dcoef = coef_j @ _CHEB_DER_T.to(dev)  # (n, K+1): coefficients of d/ds
+    dcoef = coef_j @ on(_CHEB_DER_T, dev)  # (n, K+1): coefficients of d/ds
     a, b = -torch.ones_like(s), torch.ones_like(s)
     for _ in range(N_NEWTON):
         tk = _chebyshev_values(s, coef_j.shape[-1])
@@ -400,13 +402,13 @@ class _LogTimeTable:
     def at(self, t: torch.Tensor):
         """Interpolated edge CDFs (n, C+1) at times t (n,) and a function j -> cell coefficients (n, K+2)."""
         dev = t.device
-        bounds = self.bounds.to(dev)
+        bounds = on(self.bounds, dev)
         tau = torch.log(t)
         p = (torch.searchsorted(bounds, tau, right=True) - 1).clamp(0, bounds.numel() - 2)
         x = (2 * tau - bounds[p] - bounds[p + 1]) / (bounds[p + 1] - bounds[p])
         tk = _chebyshev_values(x, TABLE_NODES)  # (n, nodes)
-        cdf = torch.bmm(tk.unsqueeze(1), self.cdf.to(dev).index_select(0, p)).squeeze(1)
-        coef = self.coef.to(dev).flatten(0, 1)  # (P·C, n, K+2)
+        cdf = torch.bmm(tk.unsqueeze(1), on(self.cdf, dev).index_select(0, p)).squeeze(1)
+        coef = on(self.coef, dev).flatten(0, 1)  # (P·C, n, K+2)
 
         def cell_coef(j):
             return torch.bmm(tk.unsqueeze(1), coef.index_select(0, p * N_CELLS + j)).squeeze(1)

@@ -40,6 +40,7 @@ import math
 import numpy as np
 import torch
 
+from heatwalk.kernels.constants import on
 from heatwalk.kernels.sphere_series import dlog_x_over_sin
 
 DTYPE = torch.float64
@@ -103,10 +104,10 @@ _RULE_TABLE = _rule_table()
 def plan(theta: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
     """Representation code per point (see the module docstring and the code constants)."""
     k_t = (8 * torch.log2(t)).floor_().clamp_(_LOG2_T_LO, _LOG2_T_HI).long() - _LOG2_T_LO
-    legendre = _LEGENDRE_TABLE[k_t]
+    legendre = on(_LEGENDRE_TABLE, t.device)[k_t]
     w = TWO_PI * ((PI - theta) + PI_LO) / t
     k_w = (4 * torch.log2(w)).floor_().clamp_(0, 64).long()
-    quad = _RULE_TABLE[k_w]
+    quad = on(_RULE_TABLE, t.device)[k_w]
     use_series = (t >= LEGENDRE_TIME) | ((t >= LEGENDRE_MIN_TIME) & (theta * theta <= 10 * t))
     return torch.where(use_series, legendre, quad)
 

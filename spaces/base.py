@@ -126,6 +126,15 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
     return t
 
 
+def generator_device(generator: torch.Generator | None) -> torch.device:
+    """The device random draws go to: the generator's (the CPU without one).
+
+    Methods that draw new points without input points (``random_uniform``, ``prior_sample``) put them on
+    this device, so a generator made on a GPU gives points on that GPU.
+    """
+    return generator.device if generator is not None else torch.device("cpu")
+
+
 def first_bad_row(mask: torch.Tensor) -> int | None:
     """Index of the first True entry of a 1-D boolean mask, or None."""
     if bool(mask.any()):
@@ -292,7 +301,7 @@ class Space(ABC):
     def sample_forward(self, x0: torch.Tensor, t, generator: torch.Generator | None = None) -> torch.Tensor:
         """Exact draw of x_t given x_0 (shape of ``x0``; ``t`` a scalar or of its batch shape)."""
         batch = self.batch_shape(x0, "x0")
-        t = self.check_time(t, batch)
+        t = self.check_time(t, batch, device=x0.device)
         flat = x0.reshape(-1, *self.ambient_shape)
         return self._sample_forward(flat, t.reshape(-1), generator).reshape(x0.shape)
 

@@ -38,7 +38,7 @@ from heatwalk.errors import InputError
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
-from heatwalk.spaces.base import GivenPart, Option
+from heatwalk.spaces.base import GivenPart, Option, generator_device
 from heatwalk.spaces.finite import FiniteStateSpace
 
 PROCESSES = ("uniform", "absorbing", "rates")
@@ -213,7 +213,7 @@ class Categories(FiniteStateSpace):
         return super().replace_given(x, part, t, generator)
 
     def random_uniform(self, n, generator=None):
-        return torch.randint(self.K, (n, self.L), generator=generator)
+        return torch.randint(self.K, (n, self.L), generator=generator, device=generator_device(generator))
 
     @property
     def log_volume(self) -> float:
@@ -267,7 +267,7 @@ class Categories(FiniteStateSpace):
         """Forward rate matrix at time t, β(t) Q with β(t) = dτ/dt = 1 / ((1 - t) gap): (*t.shape, n, n)."""
         t = self._time(t)
         beta = 1.0 / ((1.0 - t) * self.chain.spectral_gap)
-        return beta[..., None, None] * self.chain.rates
+        return beta[..., None, None] * self.chain.on("rates", t.device)
 
     def _sample_forward(self, x0, t, generator=None):
         """Exact draw of x_t | x_0, independently at each position: (n, L) int64 in [0, n_states)."""
@@ -314,7 +314,7 @@ class Categories(FiniteStateSpace):
         tt = t
         lp = torch.log(self.transition(tt)[:, : self.K, :])                         # (n, K, S)
         lp_x = torch.gather(lp, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2)  # (n, L, K)
-        ninf = torch.tensor(-math.inf, dtype=DTYPE)
+        ninf = torch.tensor(-math.inf, dtype=DTYPE, device=xt.device)
         ok_a = torch.isfinite(lp_x) & torch.isfinite(log_x0_probs)                   # (n, L, K)
         base = torch.where(ok_a, log_x0_probs, 0.0) - torch.where(ok_a, lp_x, 0.0)   # finite everywhere
         ok_v = torch.isfinite(lp).unsqueeze(1) & ok_a.unsqueeze(-1)                   # (n, 1|L, K, S)
@@ -323,24 +323,25 @@ class Categories(FiniteStateSpace):
         r = self.rates(tt)                                                           # (n, S, S): r[v, x]
         into = torch.gather(r, 2, xt.unsqueeze(1).expand(-1, self.n_states, -1)).transpose(1, 2)  # R(v -> x_l)
         jump = (into > 0) & torch.isfinite(ratio)
-        jump = jump & (torch.arange(self.n_states) != xt.unsqueeze(-1))
+        jump = jump & (torch.arange(self.n_states, device=xt.device) != xt.unsqueeze(-1))
         return torch.where(jump, torch.log(torch.where(jump, into, 1.0)) + torch.where(jump, ratio, 0.0), ninf)
 
     def _prior_kl(self, x0, t) -> torch.Tensor:
         """Σ_l KL(P_t[x0_l, ·] || π) in nats: the prior term of the ELBO (0 at t = 1). Shape (n,)."""
         p = self.transition(t)
         rows = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))  # (n, L, S)
-        pi = self.stationary
+        pi = self.chain.on("stationary", x0.device)
         with torch.no_grad():
             if bool(((rows > 0) & (pi == 0)).any()):
-                return torch.full((x0.shape[0],), math.inf, dtype=DTYPE)
+                return torch.full((x0.shape[0],), math.inf, dtype=DTYPE, device=x0.device)
         logratio = torch.where(rows > 0, torch.log(torch.where(rows > 0, rows, 1.0) / torch.where(pi > 0, pi, 1.0)), 0.0)
         return (rows * logratio).sum((-1, -2))
 
     def prior_sample(self, n, generator=None):
         """x_1 ~ π at each position (uniform states, or all mask for the absorbing chain)."""
-        return sample_categorical(self.stationary.expand(n, self.L, self.n_states), generator)
+        pi = self.chain.on("stationary", generator_device(generator))
+        return sample_categorical(pi.expand(n, self.L, self.n_states), generator)
 
     def prior_log_prob(self, x):
-        lp = torch.log(self.stationary)
+        lp = torch.log(self.chain.on("stationary", x.device))
         return lp[x].sum(-1)

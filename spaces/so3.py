@@ -8,7 +8,7 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.kernels.igso3 import LOG_VOLUME, igso3_log_prob_and_dlog, igso3_sample_angle
-from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row, generator_device
 from heatwalk.spaces.manifold import IsotropicKernel, Manifold
 
 #: validate: rows with max |x^T x - I| above this are rejected, below it projected onto SO(3)
@@ -287,7 +287,7 @@ class SO3(IsotropicKernel, Manifold):
 
     def random_uniform(self, n, generator=None):
         """Haar-distributed rotations: normalised 4-D Gaussians are uniform unit quaternions."""
-        q = torch.randn(n, 4, dtype=DTYPE, generator=generator)
+        q = torch.randn(n, 4, dtype=DTYPE, device=generator_device(generator), generator=generator)
         return quaternion_to_matrix(q / torch.linalg.vector_norm(q, dim=-1, keepdim=True))
 
     @property
@@ -335,7 +335,7 @@ class SO3(IsotropicKernel, Manifold):
         """Rotation axis directions as longitude/latitude in degrees (the angle is not shown)."""
         import numpy as np
 
-        axis = vee(x).numpy()
+        axis = vee(x).cpu().numpy()
         axis /= np.maximum(np.linalg.norm(axis, axis=1, keepdims=True), 1e-12)
         lat = np.degrees(np.arcsin(np.clip(axis[:, 2], -1, 1)))
         lon = np.degrees(np.arctan2(axis[:, 1], axis[:, 0]))

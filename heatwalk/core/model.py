@@ -20,6 +20,7 @@ from torch import nn
 
 from heatwalk.checks import check_choice, check_positive_int
 from heatwalk.core.conditioning import GIVEN_METHODS, Conditioning, check_weight
+from heatwalk.core.devices import make_generator, resolve_device, to_device
 from heatwalk.core.labels import indices_for
 from heatwalk.core.networks import build_network, network_name
 from heatwalk.core.objectives import make_objective
@@ -50,6 +51,29 @@ class Model:
         self.record = dict(record or {})
 
     @property
+    def device(self) -> torch.device:
+        """The device the network's weights are on (where sampling and likelihoods run by default)."""
+        return next(iter(self.network.parameters()), torch.empty(0)).device
+
+    def to(self, device) -> "Model":
+        """Move the network to ``device`` ("cpu", "cuda", "cuda:N", "auto" or a torch.device); returns the model."""
+        self.network.to(resolve_device(device))
+        return self
+
+    def _on(self, device) -> torch.device:
+        """The device of a call: ``device`` (the network is moved there) or, for None, the network's."""
+        if device is None:
+            return self.device
+        self.to(device)
+        return self.device
+
+    def _points_on(self, x, device: torch.device):
+        """Points ``x`` on ``device``: tensors are moved as they are, other input is validated first."""
+        if not (isinstance(x, torch.Tensor) or (isinstance(x, tuple) and all(isinstance(v, torch.Tensor) for v in x))):
+            x = self.space.validate(x)
+        return to_device(x, device)
+
+    @property
     def field(self):
         """What the samplers consume (e.g. the learned score field), unconditioned."""
         return self.objective.field(self.network)
@@ -78,8 +102,13 @@ class Model:
     def sample(self, n: int, steps: int = 500, sampler: str | None = None, seed: int | None = 0,
                generator: torch.Generator | None = None, progress: bool = True, *, label=None,
                guidance: float = 1.0, given: dict | None = None, given_method: str | None = None, guide=None,
-               guide_scale: float = 1.0, **options) -> torch.Tensor:
+               guide_scale: float = 1.0, device=None, **options) -> torch.Tensor:
         """Draw ``n`` points with ``steps`` reverse steps of ``sampler`` (default: the objective's).
+
+        device : where to sample ("cpu", "cuda", "cuda:N", "auto"); the network is moved there and the samples
+            are returned there. Default: the network's device. The generator (made from ``seed`` on that
+            device, or ``generator``, which must be on it) drives every draw: the same seed gives the same
+            samples on the same kind of device.
 
         Conditioning (see :mod:`heatwalk.core.conditioning`):
 
@@ -94,8 +123,9 @@ class Model:
         entry = self.sampler(sampler)
         cond = self.conditioning(n, label=label, guidance=guidance, given=given, given_method=given_method,
                                  guide=guide, guide_scale=guide_scale)
-        if generator is None:
-            generator = torch.Generator().manual_seed(0 if seed is None else seed)
+        device = self._on(device)
+        generator = _generator_for(generator, seed, device)
+        cond = cond.to(device)
         field = self.objective.field(self.network, None if cond.empty else cond)
         with torch.no_grad():
             return entry.function(field, n, steps=steps, generator=generator, progress=progress, **options)
@@ -120,31 +150,35 @@ class Model:
                             given_method=given_method)
 
     def elbo(self, x, n_time_samples: int = 32, seed: int | None = 0,
-             generator: torch.Generator | None = None, label=None, **options):
+             generator: torch.Generator | None = None, label=None, device=None, **options):
         """Upper bound on -log p(x) per data point, from the objective's ELBO (nats; see the objective).
 
-        Objectives without a likelihood bound raise :class:`InputError`.
+        Objectives without a likelihood bound raise :class:`InputError`. ``device``: as in :meth:`sample`
+        (the points are moved there).
         """
-        if generator is None:
-            generator = torch.Generator().manual_seed(0 if seed is None else seed)
-        x = self.space.validate(x)
-        labels = indices_for(self.classes, label, x.shape[0])
+        device = self._on(device)
+        generator = _generator_for(generator, seed, device)
+        x = self.space.validate(self._points_on(x, device))
+        labels = _labels_on(indices_for(self.classes, label, x.shape[0]), device)
         with torch.no_grad():
             return self.objective.elbo(self.network, x, generator, n_time_samples, labels=labels, **options)
 
-    def log_prob(self, x, label=None, **options) -> dict:
+    def log_prob(self, x, label=None, device=None, **options) -> dict:
         """Log-likelihood of points ``x`` in nats, w.r.t. the space's reference measure.
 
         For score models: the probability-flow ODE (exact up to solver tolerance); for discrete
         models: the negative ELBO, a lower bound on log p, flagged by ``bound = True``.
         ``label`` (one class or one per point) gives the conditional likelihood of a labelled model.
+        ``device``: as in :meth:`sample`; the points are moved there and the results are returned there.
         ``options`` go to the objective (e.g. ``method``, ``rtol``, ``divergence``, ``n_probes``).
         """
+        device = self._on(device)
+        x = self._points_on(x, device)
         if label is None:
             return self.objective.log_prob(self.network, x, **options)
         x = self.space.validate(x)
-        return self.objective.log_prob(self.network, x, labels=indices_for(self.classes, label, x.shape[0]),
-                                       **options)
+        labels = _labels_on(indices_for(self.classes, label, self.space.n_points(x)), device)
+        return self.objective.log_prob(self.network, x, labels=labels, **options)
 
     # ----- persistence ---------------------------------------------------------------------
     def config(self) -> dict:
@@ -163,6 +197,20 @@ class Model:
             (tmp / "model.json").write_text(json.dumps(self.config(), indent=2, sort_keys=True) + "\n")
             torch.save(self.network.state_dict(), tmp / "weights.pt")
         return path
+
+
+def _generator_for(generator, seed, device: torch.device) -> torch.Generator:
+    """``generator`` (checked to be on ``device``), or a new one on ``device`` seeded with ``seed`` (None: 0)."""
+    if generator is None:
+        return make_generator(0 if seed is None else seed, device)
+    if generator.device.type != device.type:
+        raise InputError(f"generator is on {generator.device} but the model runs on {device}; make it with "
+                         f"torch.Generator(device={str(device)!r})", field="generator")
+    return generator
+
+
+def _labels_on(labels, device):
+    return None if labels is None else labels.to(device)
 
 
 def load(path) -> Model:
