@@ -118,6 +118,7 @@ class CTMC:
     def __init__(self, rates, *, _method: str | None = None, _rate: float | None = None):
         q = check_rate_matrix(rates)
         self.n_states = q.shape[0]
+        # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
         self.rates = torch.tensor(q, dtype=DTYPE)
         self._cache: OrderedDict[tuple[str, float], torch.Tensor] = OrderedDict()  # (device, τ) -> P(τ)
         self._last: tuple[torch.Tensor, torch.Tensor] | None = None  # the last batch of times and its matrices
@@ -127,10 +128,12 @@ class CTMC:
             self.method = _method
             self._beta = float(_rate)
             pi = np.full(n, 1.0 / n) if _method == "uniform" else np.eye(n)[n - 1]
+            # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
             self.stationary = torch.tensor(pi, dtype=DTYPE)
             self.spectral_gap = self._beta
             return
         pi = stationary_distribution(q)
+        # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
         self.stationary = torch.tensor(pi, dtype=DTYPE)
         eig = np.linalg.eigvals(q)
         order = np.argsort(-eig.real)
@@ -146,9 +149,11 @@ class CTMC:
             lam, u = np.linalg.eigh(0.5 * (s + s.T))
             lam[np.argmax(lam)] = 0.0  # the stationary mode, exactly
             lam = np.minimum(lam, 0.0)
+            # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
             self._lam = torch.tensor(lam, dtype=DTYPE)
-            self._left = torch.tensor(u / d[:, None], dtype=DTYPE)      # D^{-1/2} U
-            self._right = torch.tensor(u.T * d[None, :], dtype=DTYPE)   # Uᵀ D^{1/2}
+            # cpu: as above (D^{-1/2} U and Uᵀ D^{1/2})
+            self._left = torch.tensor(u / d[:, None], dtype=DTYPE)
+            self._right = torch.tensor(u.T * d[None, :], dtype=DTYPE)  # cpu: as above
         else:
             self.method = "expm"
 
@@ -184,6 +189,7 @@ class CTMC:
     # ----- transition matrices -------------------------------------------------------------------
     def transition(self, tau) -> torch.Tensor:
         """P(τ) = exp(τQ) for every τ in ``tau`` (any shape, τ >= 0, inf allowed): shape (*tau.shape, n, n)."""
+        # cpu: a tensor keeps its device; a plain number is a CPU scalar
         tau = torch.as_tensor(tau, dtype=DTYPE)
         if torch.isnan(tau).any() or (tau < 0).any():
             bad = tau[torch.isnan(tau) | (tau < 0)].flatten()[0]

@@ -225,8 +225,9 @@ def igso3_log_prob_and_dlog(w: torch.Tensor, t: torch.Tensor) -> tuple[torch.Ten
         angle-is-length bi-invariant metric (total volume 8π²), in nats, and
         its derivative in w; both of the broadcast shape.
     """
+    # cpu: tensors keep their device; plain numbers are CPU scalars
     w, t = torch.broadcast_tensors(torch.as_tensor(w, dtype=torch.float64),
-                                   torch.as_tensor(t, dtype=torch.float64))
+                                   torch.as_tensor(t, dtype=torch.float64))  # cpu: as above
     small = t <= SWITCH_TIME
     logp = torch.empty_like(w)
     dlogp = torch.empty_like(w)
@@ -328,6 +329,7 @@ def _invert(u: torch.Tensor, cdf: torch.Tensor, cell_coef, w_max: torch.Tensor) 
 
 def _flatten_inputs(u, t):
     """u, t as flat float64 tensors of equal length, and the shape of u."""
+    # cpu: a tensor keeps its device
     u = torch.as_tensor(u, dtype=torch.float64)
     t = torch.as_tensor(t, dtype=torch.float64, device=u.device).expand(u.shape).reshape(-1)
     return u.reshape(-1), t, u.shape
@@ -391,9 +393,10 @@ class _LogTimeTable:
         centre, half = (bounds[:-1] + bounds[1:]) / 2, (bounds[1:] - bounds[:-1]) / 2
         P = len(centre)
         tau = centre[:, None] + half[:, None] * x[None, :]
+        # cpu: the log-time table is built once on the CPU; kernels.constants.on serves it elsewhere
         _, cdf, coef = _cdf_table(torch.as_tensor(np.exp(tau.ravel()), dtype=torch.float64))
-        to_coef = torch.as_tensor(to_coef)
-        self.bounds = torch.as_tensor(bounds, dtype=torch.float64)
+        to_coef = torch.as_tensor(to_coef)  # cpu: as above
+        self.bounds = torch.as_tensor(bounds, dtype=torch.float64)  # cpu: as above
         #: (P, n, C+1) and (P, C, n, K+2): Chebyshev coefficients in the piece's log-t coordinate
         self.cdf = torch.einsum("kn,pnf->pkf", to_coef, cdf.reshape(P, n, N_CELLS + 1)).contiguous()
         coef = torch.einsum("kn,pncf->pkcf", to_coef, coef.reshape(P, n, N_CELLS, N_CHEB + 2))
@@ -454,6 +457,7 @@ def igso3_angle_from_uniform(u: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
 
 def igso3_sample_angle(t: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
     """Exact draws of the rotation angle (radians, [0, π]) at times ``t`` (shape (n,)), by inverse CDF."""
+    # cpu: a tensor keeps its device; a plain number is a CPU scalar
     t = torch.as_tensor(t, dtype=torch.float64)
     u = torch.rand(t.shape, dtype=torch.float64, device=t.device, generator=generator)
     return igso3_angle_from_uniform(u, t)

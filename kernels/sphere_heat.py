@@ -88,6 +88,7 @@ _SAMPLER_CHUNK = 1 << 16
 
 
 def _check_args(r: torch.Tensor, t: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    # cpu: tensors keep their device; plain numbers are CPU scalars
     r, t = torch.broadcast_tensors(torch.as_tensor(r, dtype=DTYPE), torch.as_tensor(t, dtype=DTYPE))
     bad = ~(torch.isfinite(t) & (t > 0))
     if bool(bad.any()):
@@ -322,6 +323,7 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
     probability); times outside that range get a table each (one uniform draw
     per entry in every case).
     """
+    # cpu: a tensor keeps its device; a plain number is a CPU scalar
     t = torch.as_tensor(t, dtype=DTYPE)
     shape = t.shape
     t = t.reshape(-1)

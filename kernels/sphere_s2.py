@@ -95,6 +95,7 @@ def _rule_table():
             codes.append(LAGUERRE_CODE + lag[0])
         else:
             codes.append(CHEBYSHEV_CODE + next(n for hi, n in _CHEBYSHEV if w_hi <= hi or hi == _CHEBYSHEV[-1][0]))
+    # cpu: quadrature tables are built once on the CPU at import
     return torch.tensor(codes, dtype=torch.int64)
 
 
@@ -118,6 +119,7 @@ def _laguerre_rule(n: int):
     α = -1/2), as the positive half of the 2n-point Gauss–Hermite rule under w = u²."""
     u, h = np.polynomial.hermite.hermgauss(2 * n)
     pos = u > 0
+    # cpu: quadrature tables are built once on the CPU at import
     return torch.tensor(u[pos] ** 2, dtype=DTYPE), torch.tensor(2.0 * h[pos], dtype=DTYPE)
 
 
@@ -125,6 +127,7 @@ def _chebyshev_rule(n: int):
     """Gauss–Chebyshev nodes c_j of [0, 1] (weight [c(1-c)]^{-1/2}, all weights π/n) and 1 - c_j, both
     computed without cancellation."""
     a = 0.25 * math.pi * (2.0 * np.arange(1, n + 1) - 1.0) / n
+    # cpu: quadrature tables are built once on the CPU at import
     return torch.tensor(np.sin(a) ** 2, dtype=DTYPE), torch.tensor(np.cos(a) ** 2, dtype=DTYPE)
 
 

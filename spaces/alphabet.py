@@ -42,6 +42,7 @@ def encode_strings(seqs: list[str], alphabet: list[str], length: int | None = No
         raise InputError(f"{where}: no sequences")
     index = {s: k for k, s in enumerate(alphabet)}
     L = len(seqs[0]) if length is None else length
+    # cpu: codes parsed from text are made on the CPU; fit and Model move them
     codes = torch.empty(len(seqs), L, dtype=torch.int64)
     for i, s in enumerate(seqs):
         if not s:
@@ -50,7 +51,7 @@ def encode_strings(seqs: list[str], alphabet: list[str], length: int | None = No
             raise InputError(f"{where}: record {i + 1} has length {len(s)}, expected {L} "
                              f"({'given' if length is not None else 'the length of record 1'}; "
                              "all sequences must have the same length)", row=i, field="length")
-        try:
+        try:  # cpu: as above
             codes[i] = torch.tensor([index[c] for c in s], dtype=torch.int64)
         except KeyError:
             j = next(j for j, c in enumerate(s) if c not in index)

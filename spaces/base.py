@@ -111,6 +111,7 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
 
     Raises :class:`InputError` naming the first row that is NaN or infinite.
     """
+    # cpu: a tensor keeps its device; other input (lists, arrays) is read on the CPU
     t = torch.as_tensor(x, dtype=DTYPE)
     k = len(ambient_shape)
     if t.dim() == k:
@@ -216,6 +217,7 @@ class Space(ABC):
     def from_rows(self, rows, **options) -> torch.Tensor:
         """Turn an (n, n_columns) float array read from a file into validated points."""
         self.check_file_options(options)
+        # cpu: rows read from a file are on the CPU
         rows = torch.as_tensor(rows, dtype=DTYPE)
         return self.validate(rows.reshape(rows.shape[0], *self.ambient_shape))
 
@@ -339,12 +341,14 @@ class Space(ABC):
         if not isinstance(given, dict) or not given:
             raise InputError(f"given: expected a non-empty dict {{{what}: value(s)}}, got {given!r}", field="given")
         size = self.ambient_shape[0]
+        # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
         mask = torch.zeros(size, dtype=torch.bool)
-        values = torch.zeros(n, size, dtype=DTYPE)
+        values = torch.zeros(n, size, dtype=DTYPE)  # cpu: as above
         for index, value in given.items():
             if isinstance(index, bool) or not isinstance(index, int) or not 0 <= index < size:
                 raise InputError(f"given: {what} {index!r} does not exist in {self!r} ({what}s 0 … {size - 1})",
                                  field="given")
+            # cpu: as above (values given on another device are copied into the CPU table)
             v = torch.as_tensor(value, dtype=DTYPE).reshape(-1)
             if v.numel() not in (1, n):
                 raise InputError(f"given: {what} {index} has {v.numel()} values; give one value or one per sample "

@@ -133,6 +133,7 @@ class Categories(FiniteStateSpace):
 
         Raises :class:`InputError` naming the first bad row and position.
         """
+        # cpu: a tensor keeps its device; other input is read on the CPU
         t = torch.as_tensor(x)
         if t.dim() == 1 and t.shape[0] == self.L:
             t = t.unsqueeze(0)
@@ -172,8 +173,9 @@ class Categories(FiniteStateSpace):
         """``given={position: state}``: a state code in [0, K) or a symbol of the alphabet, one or one per sample."""
         if not isinstance(given, dict) or not given:
             raise InputError(f"given: expected a non-empty dict {{position: state(s)}}, got {given!r}", field="given")
+        # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
         mask = torch.zeros(self.L, dtype=torch.bool)
-        values = torch.zeros(n, self.L, dtype=torch.int64)
+        values = torch.zeros(n, self.L, dtype=torch.int64)  # cpu: as above
         for pos, value in given.items():
             if isinstance(pos, bool) or not isinstance(pos, int) or not 0 <= pos < self.L:
                 raise InputError(f"given: position {pos!r} does not exist in {self!r} (positions 0 … {self.L - 1})",
@@ -204,6 +206,7 @@ class Categories(FiniteStateSpace):
                     raise InputError(f"given: position {pos}: state {v!r} is not a state code in [0, {self.K})",
                                      field="given")
                 codes.append(k)
+        # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
         return torch.tensor(codes, dtype=torch.int64)
 
     def replace_given(self, x, part, t, generator=None, final: bool = False):
@@ -241,6 +244,7 @@ class Categories(FiniteStateSpace):
         return (1e-3, 1.0)
 
     def _time(self, t) -> torch.Tensor:
+        # cpu: a tensor keeps its device; a plain number is a CPU scalar
         t = torch.as_tensor(t, dtype=DTYPE)
         if torch.isnan(t).any() or (t < 0).any() or (t > 1).any():
             bad = t[torch.isnan(t) | (t < 0) | (t > 1)].flatten()[0]

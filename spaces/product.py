@@ -130,6 +130,7 @@ class Product(Space):
     def from_rows(self, rows, **options):
         """Split an (n, Σ columns) table into the factors' columns (each in its default format)."""
         self.check_file_options(options)
+        # cpu: rows read from a file are on the CPU
         rows = torch.as_tensor(rows, dtype=DTYPE)
         if rows.dim() != 2 or rows.shape[1] != self.n_columns:
             raise InputError(f"{self!r}: expected rows of {self.n_columns} columns, got shape {tuple(rows.shape)}",

@@ -95,6 +95,7 @@ SUM_TOLERANCE = 1e-6
 
 @lru_cache(maxsize=None)
 def _helmert(K: int) -> torch.Tensor:
+    # cpu: a cached CPU table; callers take .to(x.device)
     h = torch.zeros(K - 1, K, dtype=DTYPE)
     for i in range(1, K):  # row i-1 contrasts the first i parts with part i+1
         c = 1.0 / math.sqrt(i * (i + 1))

@@ -184,6 +184,7 @@ class SO3(IsotropicKernel, Manifold):
         """
         format, order = rotation_format, quaternion_order
         ncol = self.n_columns_for(rotation_format=format, quaternion_order=order, degrees=degrees)
+        # cpu: rows read from a file are on the CPU
         rows = torch.as_tensor(rows, dtype=DTYPE)
         if rows.dim() != 2 or rows.shape[1] != ncol:
             raise InputError(f"rotation_format {format!r} takes {ncol} columns per row, got an array of shape "

@@ -116,14 +116,18 @@ class RowReader:
         if self.dataset:
             return self._items(rows)
         if isinstance(self.data, (tuple, list)):
+            # cpu: rows are read on the CPU and moved to the device as a batch
             return tuple(torch.as_tensor(np.asarray(p[rows])) for p in self.data)
+        # cpu: rows are read on the CPU and moved to the device as a batch
         return torch.as_tensor(np.asarray(self.data[rows]))
 
     def _items(self, rows):
         items = [self.data[int(i)] for i in rows]
         if not self.product:
             items = [it[0] if isinstance(it, (tuple, list)) and len(it) == 1 else it for it in items]
+            # cpu: rows are read on the CPU and moved to the device as a batch
             return torch.stack([torch.as_tensor(np.asarray(it)) for it in items])
+        # cpu: as above
         return tuple(torch.stack([torch.as_tensor(np.asarray(it[f])) for it in items])
                      for f in range(len(self.space.factors)))
 
@@ -146,6 +150,7 @@ class RowReader:
                 raise
             item = int(rows[e.row])
             raise InputError(f"data item {item}: {e.message}", row=item, field=e.field) from None
+        # cpu: the batch is put in order on the CPU, then moved
         inverse = torch.as_tensor(inverse)
         return _move(self.space.take(x, inverse), self.device)
 

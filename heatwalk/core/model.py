@@ -53,6 +53,7 @@ class Model:
     @property
     def device(self) -> torch.device:
         """The device the network's weights are on (where sampling and likelihoods run by default)."""
+        # cpu: a network without weights runs on the CPU
         return next(iter(self.network.parameters()), torch.empty(0)).device
 
     def to(self, device) -> "Model":

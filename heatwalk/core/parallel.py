@@ -149,6 +149,7 @@ def agree(value: int, share: Share, what: str) -> int:
     """Check that every rank holds the same integer ``value`` (e.g. the step a checkpoint resumes from)."""
     if share.whole:
         return value
+    # cpu: gloo reduces CPU tensors; moved to the GPU for nccl below
     t = torch.tensor([value, -value], dtype=torch.int64)
     if torch.distributed.get_backend() == "nccl":
         t = t.cuda()

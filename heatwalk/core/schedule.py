@@ -46,7 +46,9 @@ class TimeSchedule:
         """steps+1 times from t_max down to t_min (float64, on the CPU: samplers move them), geometric or linear."""
         check_positive_int("steps", steps)
         if check_choice("spacing", spacing, GRID_SPACINGS) == "linear":
+            # cpu: sampling grids are made on the CPU; samplers move them to the points' device
             return torch.linspace(self.t_max, self.t_min, steps + 1, dtype=torch.float64)
+        # cpu: as above
         return torch.logspace(math.log10(self.t_max), math.log10(self.t_min), steps + 1, dtype=torch.float64)
 
     @property
@@ -85,6 +87,7 @@ class ClockSchedule:
         """steps + 1 clock times from 1 down to 0 (the factors' own grids follow from t_i(τ))."""
         check_positive_int("steps", steps)
         check_choice("spacing", spacing, ("linear",))
+        # cpu: sampling grids are made on the CPU; samplers move them to the points' device
         return torch.linspace(1.0, 0.0, steps + 1, dtype=torch.float64)
 
     @property

@@ -20,6 +20,7 @@ array, a Dataset or a DataLoader (:mod:`heatwalk.core.data_source`).
 
 from __future__ import annotations
 
+import gc
 import json
 import math
 import time
@@ -134,6 +135,9 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     finally:
         torch.set_num_threads(before)
         if started:
+            # the DistributedDataParallel wrapper must be gone before its process group is destroyed: a reducer
+            # freed afterwards holds the group's last reference, and its destructor can deadlock on the GIL
+            gc.collect()
             parallel.shutdown()
 
 
@@ -168,10 +172,13 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
         source.skip(start)
 
     t0 = time.perf_counter()
-    losses = _train(objective, run, (source, label_idx), start, o.steps, o.batch_size, o.ema_decay,
-                    o.progress and share.rank == 0,
-                    lambda step: _checkpoint(ckpt_path, run_config, step, run) if ckpt_path else None,
-                    o.checkpoint_every)
+    try:
+        losses = _train(objective, run, (source, label_idx), start, o.steps, o.batch_size, o.ema_decay,
+                        o.progress and share.rank == 0,
+                        lambda step: _checkpoint(ckpt_path, run_config, step, run) if ckpt_path else None,
+                        o.checkpoint_every)
+    finally:
+        run.forward = None  # drop the DistributedDataParallel wrapper (see fit)
     elapsed = time.perf_counter() - t0
     with torch.no_grad():
         for p, e in zip(run.net.parameters(), run.ema):

@@ -99,6 +99,7 @@ class DiscreteELBO(Objective):
         super().__init__(space, schedule, classes, label_dropout, inpainting)
         self.ce_weight = check_number("ce_weight", ce_weight, minimum=0)
         self.recon_fraction = check_number("recon_fraction", recon_fraction, minimum=0, open_minimum=True, maximum=1)
+        # cpu: a one-off check of the time range when the objective is built
         states = torch.arange(space.K).reshape(-1, 1).expand(-1, space.L)
         if not bool(torch.isfinite(space.prior_kl(states, schedule.t_max)).all()):
             raise InputError(f"time range: at t_max = {schedule.t_max} the law of x_t is not absolutely continuous "

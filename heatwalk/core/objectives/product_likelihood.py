@@ -71,6 +71,7 @@ class ManifoldFactors(Manifold):
         return self.join([getattr(f, name)(*a) for f, *a in zip(self.factors, *[self.split(z) for z in args])])
 
     def validate(self, x):
+        # cpu: a tensor keeps its device; other input is read on the CPU
         return self.join([f.validate(p) for f, p in zip(self.factors, self.split(torch.as_tensor(x, dtype=DTYPE)))])
 
     def project(self, x):
