@@ -110,8 +110,12 @@ def _small_fit(space, data, device):
 
 
 def _data(space, n=64):
+    """Points of the space: uniform where there is a uniform law (an absorbing prior is all masks), else the prior."""
     g = torch.Generator().manual_seed(4)
-    return space.prior_sample(n, g)
+    try:
+        return space.random_uniform(n, g)
+    except heatwalk.InputError:
+        return space.prior_sample(n, g)
 
 
 def _on(x, device):

@@ -8,8 +8,9 @@ Tolerances. The networks are float32 (eps = 1.19e-7): splitting a batch's gradie
 plus an all-reduce changes each gradient entry by a few eps relative; Adam normalises each step by the root of
 its second moment, so after k steps a weight moves by at most ~k·lr·(relative change) — 20 steps × 2e-3 ×
 1e-6 ≈ 4e-8 — plus the drift of the EMA. We allow 2e-5 absolute on weights of order 0.1–1 (hundreds of times
-the estimate, still ~1e-4 of the weights' spread) and 1e-4 on samples after 20 reverse steps, where the
-learned score amplifies weight differences by its Lipschitz constant. A resumed run repeats the same operations
+the estimate, still ~1e-4 of the weights' spread) and 1e-4 on network outputs and on samples after 20
+reverse steps, where the learned score amplifies weight differences by its Lipschitz constant. One
+exception, checked separately: the attention's key bias has an exact gradient of zero (see ``_max_diff``). A resumed run repeats the same operations
 in the same order as the uninterrupted one, so it must agree exactly.
 """
 
@@ -58,9 +59,34 @@ def _one_process(problem: str, **fit):
                         **{**dw.FIT, **fit})
 
 
-def _max_diff(a: dict, b: dict) -> float:
+def _max_diff(a: dict, b: dict, skip_key_bias: bool = False) -> float:
+    """Largest entry difference of two state dicts; optionally without the attention's key bias (see below)."""
     assert a.keys() == b.keys()
-    return max(float((a[k].double() - b[k].double()).abs().max()) for k in a)
+    out = 0.0
+    for k in a:
+        d = (a[k].double() - b[k].double()).abs()
+        if skip_key_bias and k.endswith("self_attn.in_proj_bias"):
+            third = d.shape[0] // 3
+            key_bias = d[third:2 * third]
+            # softmax ignores a constant added to every logit, so the exact gradient of the key bias is zero:
+            # Adam turns its rounding-level gradient into steps of ±lr, which may differ between the runs (at
+            # most steps × lr) and do not change the network's outputs
+            assert float(key_bias.max()) <= dw.FIT["steps"] * dw.FIT["lr"]
+            d = torch.cat([d[:third], d[2 * third:]])
+        out = max(out, float(d.max()))
+    return out
+
+
+def _outputs(model, problem):
+    """The network on a fixed batch of noised points: the function the weights stand for."""
+    objective = model.objective
+    x0 = model.space.take(dw.make_data(problem), slice(0, 64))
+    drawn = objective.draw(x0, torch.Generator().manual_seed(21))
+    if problem == "torus":
+        return objective.scaled_score(model.network, drawn["xt"], drawn["t"])
+    if problem == "categories":
+        return objective.logits(model.network, drawn["xt"], drawn["t"])
+    return objective.raw_outputs(model.network, drawn["xt"], drawn["tau"], None, drawn["roles"])
 
 
 def _as_tensors(x):
@@ -76,8 +102,11 @@ def test_two_processes_give_the_weights_and_samples_of_one(runs, problem):
     rank0 = torch.load(runs / f"{problem}_2.rank0.pt", weights_only=True)
     rank1 = torch.load(runs / f"{problem}_2.rank1.pt", weights_only=True)
     assert _max_diff(rank0, rank1) == 0.0
-    diff = _max_diff(one.network.state_dict(), two.network.state_dict())
+    diff = _max_diff(one.network.state_dict(), two.network.state_dict(), skip_key_bias=True)
     assert diff <= WEIGHT_ATOL, f"{problem}: weights of 1 and 2 processes differ by {diff:.3g}"
+    with torch.no_grad():
+        out = float((_outputs(one, problem) - _outputs(two, problem)).abs().max())
+    assert out <= SAMPLE_ATOL, f"{problem}: network outputs differ by {out:.3g}"
     # the same global losses were computed (the record's mean loss agrees to float32 rounding)
     assert two.record["mean_loss_last_100_steps"] == pytest.approx(one.record["mean_loss_last_100_steps"], rel=1e-5)
     s1 = _as_tensors(one.sample(32, steps=20, seed=7, progress=False))
@@ -121,7 +150,7 @@ def test_shares_weigh_rows_so_their_mean_is_the_batch_mean():
     whole = objective.share_loss(net, drawn)
     for world in (2, 3, 7):
         parts = [objective.share_loss(net, drawn, Share(r, world)) for r in range(world)]
-        assert float(sum(parts) / world) == pytest.approx(float(whole), rel=1e-6)
+        assert float(sum(parts).detach() / world) == pytest.approx(float(whole.detach()), rel=1e-6)
 
 
 def test_resumed_distributed_run_ends_as_the_uninterrupted_one(runs):
