@@ -126,6 +126,8 @@ def ensure_started(device: torch.device) -> Share:
     if not torch.distributed.is_available():
         raise InputError("this torch build has no torch.distributed; run one process", field="device")
     backend = "nccl" if device.type == "cuda" else "gloo"
+    if device.type == "cuda":
+        torch.cuda.set_device(device)
     torch.distributed.init_process_group(backend=backend)
     return world()
 

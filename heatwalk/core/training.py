@@ -233,7 +233,7 @@ def _start(objective, network: dict | None, lr: float, steps: int, seed: int, de
     return _Run(net, ema, opt, sched, make_generator(seed, device), forward, share)
 
 
-def _batch(objective, run: _Run, data, batch_size: int):
+def _batch(run: _Run, data, batch_size: int):
     """The next global batch and its class indices (None without labels).
 
     Row sources draw the batch's row indices from the run's generator; a stream gives its next batch.
@@ -258,7 +258,7 @@ def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, prog
     bar = tqdm(range(start, steps), desc="fitting", disable=not progress, initial=start, total=steps)
     running = None
     for step in bar:
-        x0, labels = _batch(objective, run, data, batch_size)
+        x0, labels = _batch(run, data, batch_size)
         drawn = objective.draw(x0, run.gen, labels)
         loss = objective.share_loss(run.forward, drawn, run.share)
         run.opt.zero_grad(set_to_none=True)
