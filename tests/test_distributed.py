@@ -180,3 +180,35 @@ def test_batch_smaller_than_the_processes_is_refused():
                             "inpainting": False})
     with pytest.raises(heatwalk.InputError, match="smaller than the number of processes 2"):
         _fit(dw.make_space("torus"), dw.make_data("torus"), Share(0, 2), torch.device("cpu"), settings)
+
+
+TORCHRUN_SCRIPT = """
+import sys, torch
+sys.path.insert(0, sys.argv[2])
+import heatwalk
+import distributed_worker as dw
+torch.set_num_threads(1)
+model = heatwalk.fit(dw.make_space("torus"), dw.make_data("torus"), network=dw.NETWORK["torus"], **dw.FIT)
+if heatwalk.is_main_process():
+    model.save(sys.argv[1])
+"""
+
+
+def test_torchrun_starts_a_data_parallel_fit(tmp_path):
+    """The standard launcher: torchrun (torch.distributed.run), 2 processes on this machine, loopback only."""
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    script = tmp_path / "fit.py"
+    script.write_text(TORCHRUN_SCRIPT)
+    env = {**os.environ, "GLOO_SOCKET_IFNAME": "lo"}
+    port = dw.free_ports(1)[0]
+    subprocess.run([sys.executable, "-m", "torch.distributed.run", "--nnodes", "1", "--nproc-per-node", str(WORLD),
+                    "--master-addr", dw.LOOPBACK, "--master-port", str(port), str(script), str(tmp_path / "model"),
+                    str(Path(dw.__file__).parent)], check=True, env=env, capture_output=True, timeout=600)
+    two = heatwalk.load(tmp_path / "model")
+    assert two.record["processes"] == WORLD
+    one = _one_process("torus")
+    assert _max_diff(one.network.state_dict(), two.network.state_dict()) <= WEIGHT_ATOL
