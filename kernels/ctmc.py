@@ -118,18 +118,22 @@ class CTMC:
     def __init__(self, rates, *, _method: str | None = None, _rate: float | None = None):
         q = check_rate_matrix(rates)
         self.n_states = q.shape[0]
+        # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
         self.rates = torch.tensor(q, dtype=DTYPE)
-        self._cache: OrderedDict[float, torch.Tensor] = OrderedDict()
+        self._cache: OrderedDict[tuple[str, float], torch.Tensor] = OrderedDict()  # (device, τ) -> P(τ)
         self._last: tuple[torch.Tensor, torch.Tensor] | None = None  # the last batch of times and its matrices
+        self._copies: dict[tuple[str, torch.device], torch.Tensor] = {}  # constant tensors on other devices
         n = self.n_states
         if _method in ("uniform", "absorbing"):
             self.method = _method
             self._beta = float(_rate)
             pi = np.full(n, 1.0 / n) if _method == "uniform" else np.eye(n)[n - 1]
+            # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
             self.stationary = torch.tensor(pi, dtype=DTYPE)
             self.spectral_gap = self._beta
             return
         pi = stationary_distribution(q)
+        # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
         self.stationary = torch.tensor(pi, dtype=DTYPE)
         eig = np.linalg.eigvals(q)
         order = np.argsort(-eig.real)
@@ -145,9 +149,11 @@ class CTMC:
             lam, u = np.linalg.eigh(0.5 * (s + s.T))
             lam[np.argmax(lam)] = 0.0  # the stationary mode, exactly
             lam = np.minimum(lam, 0.0)
+            # cpu: the chain's constants live on the CPU; CTMC.on serves them on other devices
             self._lam = torch.tensor(lam, dtype=DTYPE)
-            self._left = torch.tensor(u / d[:, None], dtype=DTYPE)      # D^{-1/2} U
-            self._right = torch.tensor(u.T * d[None, :], dtype=DTYPE)   # Uᵀ D^{1/2}
+            # cpu: as above (D^{-1/2} U and Uᵀ D^{1/2})
+            self._left = torch.tensor(u / d[:, None], dtype=DTYPE)
+            self._right = torch.tensor(u.T * d[None, :], dtype=DTYPE)  # cpu: as above
         else:
             self.method = "expm"
 
@@ -169,33 +175,47 @@ class CTMC:
         q[np.arange(n_data), np.arange(n_data)] = -rate
         return cls(q, _method="absorbing", _rate=rate)
 
+    def on(self, name: str, device) -> torch.Tensor:
+        """The constant tensor attribute ``name`` (``rates``, ``stationary``, …) on ``device`` (copied once)."""
+        value = getattr(self, name)
+        device = torch.device(device)
+        if value.device == device:
+            return value
+        key = (name, device)
+        if key not in self._copies:
+            self._copies[key] = value.to(device)
+        return self._copies[key]
+
     # ----- transition matrices -------------------------------------------------------------------
     def transition(self, tau) -> torch.Tensor:
         """P(τ) = exp(τQ) for every τ in ``tau`` (any shape, τ >= 0, inf allowed): shape (*tau.shape, n, n)."""
+        # cpu: a tensor keeps its device; a plain number is a CPU scalar
         tau = torch.as_tensor(tau, dtype=DTYPE)
         if torch.isnan(tau).any() or (tau < 0).any():
             bad = tau[torch.isnan(tau) | (tau < 0)].flatten()[0]
             raise InputError(f"CTMC.transition: times must be >= 0, got {float(bad)}", field="tau")
-        n = self.n_states
+        n, dev = self.n_states, tau.device
         if self.method in ("uniform", "absorbing"):
             decay = torch.exp(-self._beta * tau)[..., None, None]  # exp(-inf) = 0
-            eye = torch.eye(n, dtype=DTYPE)
+            eye = torch.eye(n, dtype=DTYPE, device=dev)
             if self.method == "uniform":
                 return decay * eye + (1 - decay) / n
-            limit = torch.zeros(n, n, dtype=DTYPE)
+            limit = torch.zeros(n, n, dtype=DTYPE, device=dev)
             limit[:, n - 1] = 1.0
             top = decay * eye + (1 - decay) * limit
             top[..., n - 1, :] = limit[n - 1]
             return top
         if self.method == "eigen":
-            lt = torch.where(self._lam == 0, torch.zeros((), dtype=DTYPE), tau[..., None] * self._lam)
-            p = (self._left * torch.exp(lt)[..., None, :]) @ self._right
+            lam = self.on("_lam", dev)
+            lt = torch.where(lam == 0, torch.zeros((), dtype=DTYPE, device=dev), tau[..., None] * lam)
+            p = (self.on("_left", dev) * torch.exp(lt)[..., None, :]) @ self.on("_right", dev)
             return p.clamp_min(0.0)  # rounding can leave -1e-17 where the exact value is 0
         return self._transition_expm(tau)
 
     def _transition_expm(self, tau: torch.Tensor) -> torch.Tensor:
         last = self._last
-        if last is not None and last[0].shape == tau.shape and torch.equal(last[0], tau):
+        if last is not None and last[0].shape == tau.shape and last[0].device == tau.device \
+                and torch.equal(last[0], tau):
             return last[1]
         out = self._transition_expm_uncached(tau)
         self._last = (tau.clone(), out)
@@ -207,24 +227,25 @@ class CTMC:
         use_cache = uniq.numel() <= CACHE_MAX_BATCH
         mats = [None] * uniq.numel()
         todo = []
+        dev = str(tau.device)
         for k, v in enumerate(uniq.tolist()):
-            if use_cache and v in self._cache:
-                self._cache.move_to_end(v)
-                mats[k] = self._cache[v]
+            if use_cache and (dev, v) in self._cache:
+                self._cache.move_to_end((dev, v))
+                mats[k] = self._cache[(dev, v)]
             else:
                 todo.append(k)
         if todo:
             vals = uniq[todo]
             finite = torch.isfinite(vals)
-            out = torch.empty(len(todo), self.n_states, self.n_states, dtype=DTYPE)
+            out = torch.empty(len(todo), self.n_states, self.n_states, dtype=DTYPE, device=tau.device)
             if bool(finite.any()):
-                out[finite] = torch.linalg.matrix_exp(vals[finite][:, None, None] * self.rates)
-            out[~finite] = self.stationary.expand(self.n_states, self.n_states)
+                out[finite] = torch.linalg.matrix_exp(vals[finite][:, None, None] * self.on("rates", tau.device))
+            out[~finite] = self.on("stationary", tau.device).expand(self.n_states, self.n_states)
             out = out.clamp_min(0.0)  # rounding can leave -1e-17 where the exact value is 0
             for j, k in enumerate(todo):
                 mats[k] = out[j]
                 if use_cache:
-                    self._cache[float(uniq[k])] = out[j]
+                    self._cache[(dev, float(uniq[k]))] = out[j]
                     if len(self._cache) > CACHE_SIZE:
                         self._cache.popitem(last=False)
         stacked = torch.stack(mats)
@@ -243,5 +264,6 @@ def sample_categorical(probs: torch.Tensor, generator: torch.Generator | None = 
     is scaled by the row total). Used by the chains' exact forward draws and by the discrete samplers.
     """
     cdf = probs.cumsum(-1)
-    u = torch.rand(probs.shape[:-1], dtype=probs.dtype, generator=generator).unsqueeze(-1) * cdf[..., -1:]
+    u = torch.rand(probs.shape[:-1], dtype=probs.dtype, device=probs.device, generator=generator).unsqueeze(-1)
+    u = u * cdf[..., -1:]
     return (cdf <= u).sum(-1).clamp_max(probs.shape[-1] - 1)

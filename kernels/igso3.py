@@ -74,6 +74,8 @@ import math
 import numpy as np
 import torch
 
+from heatwalk.kernels.constants import on
+
 LOG_VOLUME = math.log(8.0 * math.pi**2)
 PI = math.pi
 #: π - PI (the low part of π in double-double)
@@ -223,8 +225,9 @@ def igso3_log_prob_and_dlog(w: torch.Tensor, t: torch.Tensor) -> tuple[torch.Ten
         angle-is-length bi-invariant metric (total volume 8π²), in nats, and
         its derivative in w; both of the broadcast shape.
     """
+    # cpu: tensors keep their device; plain numbers are CPU scalars
     w, t = torch.broadcast_tensors(torch.as_tensor(w, dtype=torch.float64),
-                                   torch.as_tensor(t, dtype=torch.float64))
+                                   torch.as_tensor(t, dtype=torch.float64))  # cpu: as above
     small = t <= SWITCH_TIME
     logp = torch.empty_like(w)
     dlogp = torch.empty_like(w)
@@ -289,13 +292,13 @@ def _solve_in_cells(target: torch.Tensor, cdf: torch.Tensor, coef_j: torch.Tenso
     dev = target.device
     f_lo = cdf.gather(1, j.unsqueeze(-1)).squeeze(-1)
     r = target - f_lo  # CDF mass to find inside the cell
-    fine = coef_j @ _SUB_VALUES.to(dev)  # (n, N_SUB + 1): the cell polynomial at the sub-edges
+    fine = coef_j @ on(_SUB_VALUES, dev)  # (n, N_SUB + 1): the cell polynomial at the sub-edges
     m = (torch.searchsorted(fine, r.unsqueeze(-1), right=True).squeeze(-1) - 1).clamp(0, N_SUB - 1)
     g_lo = fine.gather(1, m.unsqueeze(-1)).squeeze(-1)
     g_hi = fine.gather(1, (m + 1).unsqueeze(-1)).squeeze(-1)
     frac = ((r - g_lo) / (g_hi - g_lo).clamp_min(1e-300)).clamp(0, 1)
     s = -1 + (2.0 / N_SUB) * (m.to(torch.float64) + torch.where((j == 0) & (m == 0), frac.pow(1 / 3), frac))
-    dcoef = coef_j @ _CHEB_DER_T.to(dev)  # (n, K+1): coefficients of d/ds
+    dcoef = coef_j @ on(_CHEB_DER_T, dev)  # (n, K+1): coefficients of d/ds
     a, b = -torch.ones_like(s), torch.ones_like(s)
     for _ in range(N_NEWTON):
         tk = _chebyshev_values(s, coef_j.shape[-1])
@@ -326,6 +329,7 @@ def _invert(u: torch.Tensor, cdf: torch.Tensor, cell_coef, w_max: torch.Tensor) 
 
 def _flatten_inputs(u, t):
     """u, t as flat float64 tensors of equal length, and the shape of u."""
+    # cpu: a tensor keeps its device
     u = torch.as_tensor(u, dtype=torch.float64)
     t = torch.as_tensor(t, dtype=torch.float64, device=u.device).expand(u.shape).reshape(-1)
     return u.reshape(-1), t, u.shape
@@ -389,9 +393,10 @@ class _LogTimeTable:
         centre, half = (bounds[:-1] + bounds[1:]) / 2, (bounds[1:] - bounds[:-1]) / 2
         P = len(centre)
         tau = centre[:, None] + half[:, None] * x[None, :]
+        # cpu: the log-time table is built once on the CPU; kernels.constants.on serves it elsewhere
         _, cdf, coef = _cdf_table(torch.as_tensor(np.exp(tau.ravel()), dtype=torch.float64))
-        to_coef = torch.as_tensor(to_coef)
-        self.bounds = torch.as_tensor(bounds, dtype=torch.float64)
+        to_coef = torch.as_tensor(to_coef)  # cpu: as above
+        self.bounds = torch.as_tensor(bounds, dtype=torch.float64)  # cpu: as above
         #: (P, n, C+1) and (P, C, n, K+2): Chebyshev coefficients in the piece's log-t coordinate
         self.cdf = torch.einsum("kn,pnf->pkf", to_coef, cdf.reshape(P, n, N_CELLS + 1)).contiguous()
         coef = torch.einsum("kn,pncf->pkcf", to_coef, coef.reshape(P, n, N_CELLS, N_CHEB + 2))
@@ -400,13 +405,13 @@ class _LogTimeTable:
     def at(self, t: torch.Tensor):
         """Interpolated edge CDFs (n, C+1) at times t (n,) and a function j -> cell coefficients (n, K+2)."""
         dev = t.device
-        bounds = self.bounds.to(dev)
+        bounds = on(self.bounds, dev)
         tau = torch.log(t)
         p = (torch.searchsorted(bounds, tau, right=True) - 1).clamp(0, bounds.numel() - 2)
         x = (2 * tau - bounds[p] - bounds[p + 1]) / (bounds[p + 1] - bounds[p])
         tk = _chebyshev_values(x, TABLE_NODES)  # (n, nodes)
-        cdf = torch.bmm(tk.unsqueeze(1), self.cdf.to(dev).index_select(0, p)).squeeze(1)
-        coef = self.coef.to(dev).flatten(0, 1)  # (P·C, n, K+2)
+        cdf = torch.bmm(tk.unsqueeze(1), on(self.cdf, dev).index_select(0, p)).squeeze(1)
+        coef = on(self.coef, dev).flatten(0, 1)  # (P·C, n, K+2)
 
         def cell_coef(j):
             return torch.bmm(tk.unsqueeze(1), coef.index_select(0, p * N_CELLS + j)).squeeze(1)
@@ -452,6 +457,7 @@ def igso3_angle_from_uniform(u: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
 
 def igso3_sample_angle(t: torch.Tensor, generator: torch.Generator | None = None) -> torch.Tensor:
     """Exact draws of the rotation angle (radians, [0, π]) at times ``t`` (shape (n,)), by inverse CDF."""
+    # cpu: a tensor keeps its device; a plain number is a CPU scalar
     t = torch.as_tensor(t, dtype=torch.float64)
     u = torch.rand(t.shape, dtype=torch.float64, device=t.device, generator=generator)
     return igso3_angle_from_uniform(u, t)

@@ -88,6 +88,7 @@ _SAMPLER_CHUNK = 1 << 16
 
 
 def _check_args(r: torch.Tensor, t: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+    # cpu: tensors keep their device; plain numbers are CPU scalars
     r, t = torch.broadcast_tensors(torch.as_tensor(r, dtype=DTYPE), torch.as_tensor(t, dtype=DTYPE))
     bad = ~(torch.isfinite(t) & (t > 0))
     if bool(bad.any()):
@@ -240,17 +241,22 @@ def _radial_tables(t_unique: torch.Tensor, d: int):
 TABLE_T_MIN, TABLE_T_MAX, TABLE_LOG_STEP = 1e-6, 64.0, 0.04
 #: batches with more distinct times than this use the table interpolated in log t
 EXACT_MAX_TIMES = 64
-_TABLES: dict[int, tuple] = {}
+_TABLES: dict[tuple[int, torch.device], tuple] = {}
 
 
-def _log_time_table(d: int):
-    if d not in _TABLES:
+def _log_time_table(d: int, device: torch.device):
+    """The table over log t for S^d on ``device``: computed once on the CPU (the same numbers everywhere), copied."""
+    cpu = torch.device("cpu")
+    if (d, cpu) not in _TABLES:
         lo, hi = math.log(TABLE_T_MIN), math.log(TABLE_T_MAX)
         m = int(math.ceil((hi - lo) / TABLE_LOG_STEP)) + 1
-        log_t = lo + TABLE_LOG_STEP * torch.arange(m, dtype=DTYPE)
+        log_t = lo + TABLE_LOG_STEP * torch.arange(m, dtype=DTYPE, device=cpu)
         _, cdf, f, df = _radial_tables(torch.exp(log_t), d)
-        _TABLES[d] = (lo, cdf, f, df)
-    return _TABLES[d]
+        _TABLES[(d, cpu)] = (lo, cdf, f, df)
+    if (d, device) not in _TABLES:
+        lo, *tables = _TABLES[(d, cpu)]
+        _TABLES[(d, device)] = (lo, *(tab.to(device) for tab in tables))
+    return _TABLES[(d, device)]
 
 
 def _invert(cdf, f, df, u):
@@ -317,6 +323,7 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
     probability); times outside that range get a table each (one uniform draw
     per entry in every case).
     """
+    # cpu: a tensor keeps its device; a plain number is a CPU scalar
     t = torch.as_tensor(t, dtype=DTYPE)
     shape = t.shape
     t = t.reshape(-1)
@@ -339,7 +346,7 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
     outside = (~inside).nonzero().squeeze(-1)
     if outside.numel():
         out[outside] = _sample_per_time(t[outside], u[outside], d)
-    lo, cdf, f, df = _log_time_table(d)
+    lo, cdf, f, df = _log_time_table(d, t.device)
     m = cdf.shape[0]
     idx = inside.nonzero().squeeze(-1)
     for i in range(0, idx.numel(), chunk):
@@ -347,17 +354,15 @@ def sample_sphere_radius(t, d: int, generator: torch.Generator | None = None) ->
         x = (torch.log(t[k]) - lo) / TABLE_LOG_STEP
         i0 = (torch.floor(x).long() - 1).clamp(0, m - 4)
         xr = x - i0.to(DTYPE)  # position among nodes 0, 1, 2, 3
-        nodes = torch.arange(4, dtype=DTYPE)
-        wts = torch.ones(k.numel(), 4, dtype=DTYPE)
+        wts = torch.ones(k.numel(), 4, dtype=DTYPE, device=t.device)
         for a in range(4):
             for b in range(4):
                 if a != b:
                     wts[:, a] = wts[:, a] * (xr - b) / (a - b)
-        rows = i0[:, None] + torch.arange(4)
+        rows = i0[:, None] + torch.arange(4, device=t.device)
         mix = lambda tab: (wts[:, :, None] * tab[rows]).sum(1)  # noqa: E731
         c_rows = mix(cdf)
         c_rows[:, 0], c_rows[:, -1] = 0.0, 1.0
         c_rows = torch.cummax(c_rows, -1).values  # interpolation can wiggle by ~1e-12 where the CDF is flat
         out[k] = _radius_cap(t[k], d) * _invert(c_rows, mix(f), mix(df), u[k])
-        del nodes
     return out.clamp(0.0, PI).reshape(shape)

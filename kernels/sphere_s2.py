@@ -40,6 +40,7 @@ import math
 import numpy as np
 import torch
 
+from heatwalk.kernels.constants import on
 from heatwalk.kernels.sphere_series import dlog_x_over_sin
 
 DTYPE = torch.float64
@@ -94,6 +95,7 @@ def _rule_table():
             codes.append(LAGUERRE_CODE + lag[0])
         else:
             codes.append(CHEBYSHEV_CODE + next(n for hi, n in _CHEBYSHEV if w_hi <= hi or hi == _CHEBYSHEV[-1][0]))
+    # cpu: quadrature tables are built once on the CPU at import
     return torch.tensor(codes, dtype=torch.int64)
 
 
@@ -103,10 +105,10 @@ _RULE_TABLE = _rule_table()
 def plan(theta: torch.Tensor, t: torch.Tensor) -> torch.Tensor:
     """Representation code per point (see the module docstring and the code constants)."""
     k_t = (8 * torch.log2(t)).floor_().clamp_(_LOG2_T_LO, _LOG2_T_HI).long() - _LOG2_T_LO
-    legendre = _LEGENDRE_TABLE[k_t]
+    legendre = on(_LEGENDRE_TABLE, t.device)[k_t]
     w = TWO_PI * ((PI - theta) + PI_LO) / t
     k_w = (4 * torch.log2(w)).floor_().clamp_(0, 64).long()
-    quad = _RULE_TABLE[k_w]
+    quad = on(_RULE_TABLE, t.device)[k_w]
     use_series = (t >= LEGENDRE_TIME) | ((t >= LEGENDRE_MIN_TIME) & (theta * theta <= 10 * t))
     return torch.where(use_series, legendre, quad)
 
@@ -117,6 +119,7 @@ def _laguerre_rule(n: int):
     α = -1/2), as the positive half of the 2n-point Gauss–Hermite rule under w = u²."""
     u, h = np.polynomial.hermite.hermgauss(2 * n)
     pos = u > 0
+    # cpu: quadrature tables are built once on the CPU at import
     return torch.tensor(u[pos] ** 2, dtype=DTYPE), torch.tensor(2.0 * h[pos], dtype=DTYPE)
 
 
@@ -124,6 +127,7 @@ def _chebyshev_rule(n: int):
     """Gauss–Chebyshev nodes c_j of [0, 1] (weight [c(1-c)]^{-1/2}, all weights π/n) and 1 - c_j, both
     computed without cancellation."""
     a = 0.25 * math.pi * (2.0 * np.arange(1, n + 1) - 1.0) / n
+    # cpu: quadrature tables are built once on the CPU at import
     return torch.tensor(np.sin(a) ** 2, dtype=DTYPE), torch.tensor(np.cos(a) ** 2, dtype=DTYPE)
 
 

@@ -22,6 +22,8 @@ import math
 
 import torch
 
+from heatwalk.kernels.constants import on
+
 TWO_PI = 2.0 * math.pi
 LOG_TWO_PI = math.log(TWO_PI)
 
@@ -106,7 +108,7 @@ def wrapped_normal_log_prob_and_score(d: torch.Tensor, t: torch.Tensor) -> tuple
     shape = d.shape
     d, t = d.reshape(-1).contiguous(), t.reshape(-1).contiguous()
     # one pass assigns each point to the cheapest exact group (see _GROUPS), then each group is evaluated
-    bucket = torch.bucketize(t, _GROUP_BOUNDS.to(t.device), right=False)
+    bucket = torch.bucketize(t, on(_GROUP_BOUNDS, t.device), right=False)
     logp = torch.empty_like(d)
     score = torch.empty_like(d)
     for g, (branch, count) in enumerate(_GROUPS):

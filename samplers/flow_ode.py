@@ -109,11 +109,11 @@ class FlowField:
         terms = []
         with torch.enable_grad():
             for e in dirs:
-                eps = torch.zeros(n, dtype=torch.float64, requires_grad=True)
+                eps = torch.zeros(n, dtype=torch.float64, device=x.device, requires_grad=True)
                 y = space.exp(x, eps.reshape(_bshape(space, n)) * e)
                 v = self.velocity(y, t)
                 if not v.requires_grad:  # a field that does not depend on x (e.g. zero) has zero divergence
-                    terms.append(torch.zeros(n, dtype=torch.float64))
+                    terms.append(torch.zeros(n, dtype=torch.float64, device=x.device))
                     continue
                 (g,) = torch.autograd.grad(space.inner(x, e, v).sum(), eps)
                 terms.append(g)
@@ -121,7 +121,7 @@ class FlowField:
         if not bool(torch.isfinite(terms).all()):
             raise FloatingPointError("non-finite divergence: the velocity field is not differentiable here")
         if self.divergence == "exact":
-            return v0, terms.sum(0), torch.zeros(n, dtype=torch.float64)
+            return v0, terms.sum(0), torch.zeros(n, dtype=torch.float64, device=x.device)
         div = terms.mean(0)
         se = terms.std(0) / math.sqrt(len(dirs)) if len(dirs) > 1 else torch.full_like(div, float("nan"))
         return v0, div, se
@@ -149,7 +149,7 @@ def _rk_step(flow, x, s, h, tableau_a, tableau_c, with_div):
         else:
             cvec = sum(a * k for a, k in zip(a_row, ks) if a != 0.0) * h
             y = space.exp(x, cvec)
-        t = torch.exp(torch.as_tensor(s + c * h, dtype=torch.float64))
+        t = torch.exp(torch.as_tensor(s + c * h, dtype=torch.float64, device=x.device))
         tt = t.expand(n)
         if with_div:
             v, div, se = flow.velocity_and_divergence(y, tt)
@@ -183,8 +183,8 @@ def integrate(flow: FlowField, x, t_from: float, t_to: float, *, method: str = "
 
 def _integrate_rk4(flow, x, s0, s1, steps, with_div, progress):
     space = flow.space
-    acc = torch.zeros(x.shape[0], dtype=torch.float64)
-    var = torch.zeros(x.shape[0], dtype=torch.float64)
+    acc = torch.zeros(x.shape[0], dtype=torch.float64, device=x.device)
+    var = torch.zeros(x.shape[0], dtype=torch.float64, device=x.device)
     h = (s1 - s0) / steps
     s = s0
     for _ in tqdm(range(steps), desc="probability-flow ODE", disable=not progress, leave=False):
@@ -199,8 +199,8 @@ def _integrate_rk4(flow, x, s0, s1, steps, with_div, progress):
 
 def _integrate_dopri5(flow, x, s0, s1, rtol, atol, with_div, progress, max_steps):
     space = flow.space
-    acc = torch.zeros(x.shape[0], dtype=torch.float64)
-    var = torch.zeros(x.shape[0], dtype=torch.float64)
+    acc = torch.zeros(x.shape[0], dtype=torch.float64, device=x.device)
+    var = torch.zeros(x.shape[0], dtype=torch.float64, device=x.device)
     direction = 1.0 if s1 > s0 else -1.0
     total = abs(s1 - s0)
     h = direction * min(total, 0.05)

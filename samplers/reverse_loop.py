@@ -39,8 +39,9 @@ def reverse_loop(field, n: int, steps: int, step: Callable, *, generator: torch.
                  finish: Callable | None = None) -> torch.Tensor:
     """Run ``step`` over the field's reverse-time grid from the prior (or ``x_init``); see the module docstring."""
     check_positive_int("steps", steps)
-    times = field.grid(steps)
-    x = field.constrain(initial_state(field, n, generator, x_init), times[0], generator)
+    x = initial_state(field, n, generator, x_init)
+    times = field.grid(steps).to(x[0].device if isinstance(x, tuple) else x.device)
+    x = field.constrain(x, times[0], generator)
     for i in tqdm(range(steps), desc=desc, disable=not progress, leave=False):
         x = field.constrain(step(x, i, times[i], times[i + 1]), times[i + 1], generator,
                             final=finish is None and i == steps - 1)

@@ -31,6 +31,7 @@ from heatwalk.checks import check_choice, check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.kernels.ctmc import sample_categorical
 from heatwalk.samplers.reverse_loop import reverse_loop
+from heatwalk.spaces.base import generator_device
 
 SCHEDULES = {"linear": lambda u: 1.0 - u, "cosine": lambda u: math.cos(0.5 * math.pi * u)}
 ORDERS = ("random", "confidence")
@@ -57,7 +58,7 @@ def unmasking(field, n: int, steps: int = 100, generator: torch.Generator | None
         t = min(max(masked_after[k] / L, t_min), t_max)
         probs = field.x0_probs(x, t)                                   # (n, L, K)
         if order == "random":
-            score = torch.rand(n, L, dtype=torch.float64, generator=generator)
+            score = torch.rand(n, L, dtype=torch.float64, device=x.device, generator=generator)
         else:
             score = probs.max(-1).values
         score = score.masked_fill(x != mask, -math.inf)
@@ -65,6 +66,6 @@ def unmasking(field, n: int, steps: int = 100, generator: torch.Generator | None
         draw = sample_categorical(probs, generator)
         return x.scatter(1, pick, torch.gather(draw, 1, pick))
 
-    start = torch.full((n, L), mask, dtype=torch.int64)
+    start = torch.full((n, L), mask, dtype=torch.int64, device=generator_device(generator))
     return reverse_loop(field, n, steps, step, generator=generator, progress=progress, x_init=start,
                         desc="sampling (unmasking)")

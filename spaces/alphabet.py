@@ -46,6 +46,7 @@ def encode_strings(seqs: list[str], alphabet: list[str], length: int | None = No
         raise InputError(f"{where}: no sequences")
     index = {s: k for k, s in enumerate(alphabet)}
     L = (len(seqs[0]) if end is None else max(map(len, seqs))) if length is None else length
+    # cpu: codes parsed from text are made on the CPU; fit and Model move them
     codes = torch.full((len(seqs), L), -1 if end is None else end, dtype=torch.int64)
     for i, s in enumerate(seqs):
         if not s:
@@ -57,7 +58,7 @@ def encode_strings(seqs: list[str], alphabet: list[str], length: int | None = No
             raise InputError(f"{where}: record {i + 1} has length {len(s)}, expected {L} "
                              f"({'given' if length is not None else 'the length of record 1'}; "
                              "all sequences must have the same length)", row=i, field="length")
-        try:
+        try:  # cpu: as above
             codes[i, :len(s)] = torch.tensor([index[c] for c in s], dtype=torch.int64)
         except KeyError:
             j = next(j for j, c in enumerate(s) if c not in index)

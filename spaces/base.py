@@ -153,7 +153,7 @@ def real_tensor(x, what: str = "points", dtype: torch.dtype | None = DTYPE, expe
                              f"(text or mixed entries?)")
         if a.dtype.kind == "u" and a.dtype.itemsize == 8:
             a = a.astype(np.float64) if a.size and int(a.max()) >= 2**63 else a.astype(np.int64)
-        t = torch.as_tensor(a)
+        t = torch.as_tensor(a)  # cpu: arrays and lists are read on the CPU
     if t.dtype == torch.bool or t.is_complex():
         raise InputError(f"{what}: expected {expected}, got dtype {str(t.dtype).replace('torch.', '')}")
     return t if dtype is None or t.dtype == dtype else t.to(dtype)
@@ -166,6 +166,7 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
     booleans, complex numbers and non-numbers, an empty batch ("no points"), a wrong shape, or naming the
     first row that is NaN or infinite.
     """
+    # cpu: a tensor keeps its device; other input (lists, arrays) is read on the CPU
     t = real_tensor(numeric_table(x, what), what)
     k = len(ambient_shape)
     if t.dim() == k:
@@ -181,6 +182,15 @@ def as_points(x, ambient_shape: tuple[int, ...], what: str = "points") -> torch.
         i = int(bad.nonzero()[0, 0])
         raise InputError(f"{what}: row {i} contains NaN or infinity", row=i)
     return t
+
+
+def generator_device(generator: torch.Generator | None) -> torch.device:
+    """The device random draws go to: the generator's (the CPU without one).
+
+    Methods that draw new points without input points (``random_uniform``, ``prior_sample``) put them on
+    this device, so a generator made on a GPU gives points on that GPU.
+    """
+    return generator.device if generator is not None else torch.device("cpu")
 
 
 def first_bad_row(mask: torch.Tensor) -> int | None:
@@ -266,6 +276,7 @@ class Space(ABC):
     def from_rows(self, rows, **options) -> torch.Tensor:
         """Turn an (n, n_columns) float array read from a file into validated points."""
         self.check_file_options(options)
+        # cpu: rows read from a file are on the CPU
         rows = real_tensor(rows, "rows")
         if rows.dim() != 2 or rows.shape[1] != self.n_columns:
             raise InputError(f"rows: expected a table of shape (n, {self.n_columns}) for {self!r}, got "
@@ -354,7 +365,7 @@ class Space(ABC):
     def sample_forward(self, x0: torch.Tensor, t, generator: torch.Generator | None = None) -> torch.Tensor:
         """Exact draw of x_t given x_0 (shape of ``x0``; ``t`` a scalar or of its batch shape)."""
         batch = self.batch_shape(x0, "x0")
-        t = self.check_time(t, batch)
+        t = self.check_time(t, batch, device=x0.device)
         flat = x0.reshape(-1, *self.ambient_shape)
         return self._sample_forward(flat, t.reshape(-1), generator).reshape(x0.shape)
 
@@ -392,12 +403,14 @@ class Space(ABC):
         if not isinstance(given, dict) or not given:
             raise InputError(f"given: expected a non-empty dict {{{what}: value(s)}}, got {given!r}", field="given")
         size = self.ambient_shape[0]
+        # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
         mask = torch.zeros(size, dtype=torch.bool)
-        values = torch.zeros(n, size, dtype=DTYPE)
+        values = torch.zeros(n, size, dtype=DTYPE)  # cpu: as above
         for index, value in given.items():
             if isinstance(index, bool) or not isinstance(index, int) or not 0 <= index < size:
                 raise InputError(f"given: {what} {index!r} does not exist in {self!r} ({what}s 0 … {size - 1})",
                                  field="given")
+            # cpu: as above (values given on another device are copied into the CPU table)
             v = torch.as_tensor(value, dtype=DTYPE).reshape(-1)
             if v.numel() not in (1, n):
                 raise InputError(f"given: {what} {index} has {v.numel()} values; give one value or one per sample "

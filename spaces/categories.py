@@ -38,7 +38,7 @@ from heatwalk.errors import InputError
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
-from heatwalk.spaces.base import GivenPart, Option, real_tensor
+from heatwalk.spaces.base import GivenPart, Option, generator_device, real_tensor
 from heatwalk.spaces.finite import FiniteStateSpace
 
 PROCESSES = ("uniform", "absorbing", "rates")
@@ -153,7 +153,7 @@ class Categories(FiniteStateSpace):
     def lengths(self, x: torch.Tensor) -> torch.Tensor:
         """Sequence lengths (n,): the position of the first end state, or L."""
         if self.end_state is None:
-            return torch.full((x.shape[0],), self.L, dtype=torch.int64)
+            return torch.full((x.shape[0],), self.L, dtype=torch.int64, device=x.device)
         end = x == self.end_state
         return torch.where(end.any(-1), end.int().argmax(-1), torch.full_like(x[:, 0], self.L)).long()
 
@@ -168,7 +168,7 @@ class Categories(FiniteStateSpace):
         """Codes (n, L) -> strings over ``alphabet``, each read up to its first end state."""
         if self.alphabet is None:
             raise InputError("Categories.decode needs an alphabet; pass alphabet=... to Categories", field="alphabet")
-        x = torch.as_tensor(x)
+        x = torch.as_tensor(x).cpu()  # cpu: decoded to text on the CPU
         if x.dim() != 2 or x.shape[1] != self.L or x.is_floating_point():
             raise InputError(f"sequences: expected integer codes of shape (n, {self.L}), got {tuple(x.shape)}")
         out = []
@@ -185,6 +185,7 @@ class Categories(FiniteStateSpace):
 
         Raises :class:`InputError` naming the first bad row and position.
         """
+        # cpu: a tensor keeps its device; other input is read on the CPU
         t = real_tensor(x, "sequences", dtype=None, expected="integer state codes")
         if t.dim() == 1 and t.shape[0] == self.L:
             t = t.unsqueeze(0)
@@ -241,8 +242,9 @@ class Categories(FiniteStateSpace):
         """``given={position: state}``: a state code in [0, K) or a symbol of the alphabet, one or one per sample."""
         if not isinstance(given, dict) or not given:
             raise InputError(f"given: expected a non-empty dict {{position: state(s)}}, got {given!r}", field="given")
+        # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
         mask = torch.zeros(self.L, dtype=torch.bool)
-        values = torch.zeros(n, self.L, dtype=torch.int64)
+        values = torch.zeros(n, self.L, dtype=torch.int64)  # cpu: as above
         for pos, value in given.items():
             if isinstance(pos, bool) or not isinstance(pos, int) or not 0 <= pos < self.L:
                 raise InputError(f"given: position {pos!r} does not exist in {self!r} (positions 0 … {self.L - 1})",
@@ -273,6 +275,7 @@ class Categories(FiniteStateSpace):
                     raise InputError(f"given: position {pos}: state {v!r} is not a state code in [0, {self.K})",
                                      field="given")
                 codes.append(k)
+        # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
         return torch.tensor(codes, dtype=torch.int64)
 
     def replace_given(self, x, part, t, generator=None, final: bool = False):
@@ -283,13 +286,14 @@ class Categories(FiniteStateSpace):
 
     def random_uniform(self, n, generator=None):
         """Uniform sequences: L uniform states (variable lengths: a length with probability ∝ K^l, then symbols)."""
+        device = generator_device(generator)
         if self.end_state is None:
-            return torch.randint(self.K, (n, self.L), generator=generator)
+            return torch.randint(self.K, (n, self.L), generator=generator, device=device)
         k = self.n_symbols
-        logw = torch.arange(1, self.L + 1, dtype=DTYPE) * math.log(k)
+        logw = torch.arange(1, self.L + 1, dtype=DTYPE, device=device) * math.log(k)
         length = 1 + torch.multinomial(torch.softmax(logw, 0), n, replacement=True, generator=generator)
-        x = torch.randint(k, (n, self.L), generator=generator)
-        return torch.where(torch.arange(self.L) < length.unsqueeze(-1), x, self.end_state)
+        x = torch.randint(k, (n, self.L), generator=generator, device=device)
+        return torch.where(torch.arange(self.L, device=device) < length.unsqueeze(-1), x, self.end_state)
 
     @property
     def log_volume(self) -> float:
@@ -297,7 +301,7 @@ class Categories(FiniteStateSpace):
         if self.end_state is None:
             return self.L * math.log(self.K)
         k = self.n_symbols
-        return float(torch.logsumexp(torch.arange(1, self.L + 1, dtype=DTYPE) * math.log(k), 0))
+        return float(torch.logsumexp(torch.arange(1, self.L + 1, dtype=DTYPE) * math.log(k), 0))  # cpu: a number
 
     def dist(self, x, y):
         """Hamming distance: number of positions where the sequences differ."""
@@ -320,6 +324,7 @@ class Categories(FiniteStateSpace):
         return (1e-3, 1.0)
 
     def _time(self, t) -> torch.Tensor:
+        # cpu: a tensor keeps its device; a plain number is a CPU scalar
         t = torch.as_tensor(t, dtype=DTYPE)
         if torch.isnan(t).any() or (t < 0).any() or (t > 1).any():
             bad = t[torch.isnan(t) | (t < 0) | (t > 1)].flatten()[0]
@@ -346,7 +351,7 @@ class Categories(FiniteStateSpace):
         """Forward rate matrix at time t, β(t) Q with β(t) = dτ/dt = 1 / ((1 - t) gap): (*t.shape, n, n)."""
         t = self._time(t)
         beta = 1.0 / ((1.0 - t) * self.chain.spectral_gap)
-        return beta[..., None, None] * self.chain.rates
+        return beta[..., None, None] * self.chain.on("rates", t.device)
 
     def _sample_forward(self, x0, t, generator=None):
         """Exact draw of x_t | x_0, independently at each position: (n, L) int64 in [0, n_states)."""
@@ -393,7 +398,7 @@ class Categories(FiniteStateSpace):
         tt = t
         lp = torch.log(self.transition(tt)[:, : self.K, :])                         # (n, K, S)
         lp_x = torch.gather(lp, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2)  # (n, L, K)
-        ninf = torch.tensor(-math.inf, dtype=DTYPE)
+        ninf = torch.tensor(-math.inf, dtype=DTYPE, device=xt.device)
         ok_a = torch.isfinite(lp_x) & torch.isfinite(log_x0_probs)                   # (n, L, K)
         base = torch.where(ok_a, log_x0_probs, 0.0) - torch.where(ok_a, lp_x, 0.0)   # finite everywhere
         ok_v = torch.isfinite(lp).unsqueeze(1) & ok_a.unsqueeze(-1)                   # (n, 1|L, K, S)
@@ -402,24 +407,25 @@ class Categories(FiniteStateSpace):
         r = self.rates(tt)                                                           # (n, S, S): r[v, x]
         into = torch.gather(r, 2, xt.unsqueeze(1).expand(-1, self.n_states, -1)).transpose(1, 2)  # R(v -> x_l)
         jump = (into > 0) & torch.isfinite(ratio)
-        jump = jump & (torch.arange(self.n_states) != xt.unsqueeze(-1))
+        jump = jump & (torch.arange(self.n_states, device=xt.device) != xt.unsqueeze(-1))
         return torch.where(jump, torch.log(torch.where(jump, into, 1.0)) + torch.where(jump, ratio, 0.0), ninf)
 
     def _prior_kl(self, x0, t) -> torch.Tensor:
         """Σ_l KL(P_t[x0_l, ·] || π) in nats: the prior term of the ELBO (0 at t = 1). Shape (n,)."""
         p = self.transition(t)
         rows = torch.gather(p, 1, x0.unsqueeze(-1).expand(-1, -1, self.n_states))  # (n, L, S)
-        pi = self.stationary
+        pi = self.chain.on("stationary", x0.device)
         with torch.no_grad():
             if bool(((rows > 0) & (pi == 0)).any()):
-                return torch.full((x0.shape[0],), math.inf, dtype=DTYPE)
+                return torch.full((x0.shape[0],), math.inf, dtype=DTYPE, device=x0.device)
         logratio = torch.where(rows > 0, torch.log(torch.where(rows > 0, rows, 1.0) / torch.where(pi > 0, pi, 1.0)), 0.0)
         return (rows * logratio).sum((-1, -2))
 
     def prior_sample(self, n, generator=None):
         """x_1 ~ π at each position (uniform states, or all mask for the absorbing chain)."""
-        return sample_categorical(self.stationary.expand(n, self.L, self.n_states), generator)
+        pi = self.chain.on("stationary", generator_device(generator))
+        return sample_categorical(pi.expand(n, self.L, self.n_states), generator)
 
     def prior_log_prob(self, x):
-        lp = torch.log(self.stationary)
+        lp = torch.log(self.chain.on("stationary", x.device))
         return lp[x].sum(-1)

@@ -16,7 +16,7 @@ import torch
 from heatwalk.checks import check_choice, check_positive_int, check_positive_number
 from heatwalk.errors import InputError
 from heatwalk.kernels.ornstein_uhlenbeck import ou_log_prob_and_score, ou_sample, standard_normal_log_prob
-from heatwalk.spaces.base import DTYPE, as_points
+from heatwalk.spaces.base import DTYPE, as_points, generator_device
 from heatwalk.spaces.manifold import Manifold
 
 LOG_TWO_PI = math.log(2.0 * math.pi)
@@ -162,7 +162,7 @@ class Euclidean(Manifold):
 
     def prior_sample(self, n, generator=None):
         scale = 1.0 if self._ou else math.sqrt(self.t_max)
-        return scale * torch.randn(n, self.d, dtype=DTYPE, generator=generator)
+        return scale * torch.randn(n, self.d, dtype=DTYPE, device=generator_device(generator), generator=generator)
 
     def prior_log_prob(self, x):
         if self._ou:

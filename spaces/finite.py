@@ -56,7 +56,7 @@ class FiniteStateSpace(Space):
         if not isinstance(xt, torch.Tensor) or xt.dim() != 2 or xt.shape[1] != self.L:
             got = tuple(xt.shape) if isinstance(xt, torch.Tensor) else type(xt).__name__
             raise InputError(f"sequences: expected a tensor of shape (n, {self.L}), got {got}", field="xt")
-        return self.check_time(t, xt.shape[:1])
+        return self.check_time(t, xt.shape[:1], device=xt.device)
 
     def x0_support(self, xt: torch.Tensor, t) -> torch.Tensor:
         """(n, L, K) bool: data states a with Pr(x_t | x_0 = a) > 0 at each position."""

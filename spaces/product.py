@@ -131,6 +131,7 @@ class Product(Space):
     def from_rows(self, rows, **options):
         """Split an (n, Σ columns) table into the factors' columns (each in its default format)."""
         self.check_file_options(options)
+        # cpu: rows read from a file are on the CPU
         rows = torch.as_tensor(rows, dtype=DTYPE)
         if rows.dim() != 2 or rows.shape[1] != self.n_columns:
             raise InputError(f"{self!r}: expected rows of {self.n_columns} columns, got shape {tuple(rows.shape)}",
@@ -168,8 +169,8 @@ class Product(Space):
             out.append(t * math.log(hi / lo) if manifold else torch.full_like(tau, hi - lo))
         return out
 
-    def _clock(self, tau, n: int) -> torch.Tensor:
-        tau = torch.as_tensor(tau, dtype=DTYPE)
+    def _clock(self, tau, n: int, device) -> torch.Tensor:
+        tau = torch.as_tensor(tau, dtype=DTYPE, device=device)
         bad = ~((tau >= 0) & (tau <= 1))
         if bool(bad.any()):
             raise InputError(f"{self!r}: the diffusion clock must lie in [0, 1], got {float(tau[bad].flatten()[0])}",
@@ -178,11 +179,11 @@ class Product(Space):
 
     def sample_forward(self, x0, t, generator=None):
         """Exact draw of every factor at its time t_i(τ) (τ = ``t``, the clock in [0, 1])."""
-        return self._sample_forward(x0, self._clock(t, self.n_points(x0)), generator)
+        return self._sample_forward(x0, self._clock(t, self.n_points(x0), x0[0].device), generator)
 
     def log_kernel(self, xt, x0, t):
         """Σ_i log p_{t_i(τ)}(xt_i | x0_i), nats w.r.t. the product measure (τ = ``t``)."""
-        return self._log_kernel(xt, x0, self._clock(t, self.n_points(x0)))
+        return self._log_kernel(xt, x0, self._clock(t, self.n_points(x0), x0[0].device))
 
     def _sample_forward(self, x0, tau, generator):
         return tuple(f.sample_forward(xi, ti, generator) for f, xi, ti in zip(self.factors, x0, self.factor_times(tau)))

@@ -86,7 +86,7 @@ import torch
 from heatwalk.checks import check_int, check_positive_number
 from heatwalk.errors import InputError
 from heatwalk.kernels.ornstein_uhlenbeck import ou_log_prob_and_score, ou_sample, standard_normal_log_prob
-from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row, generator_device
 from heatwalk.spaces.manifold import Manifold
 
 #: rows whose parts sum to within this of 1 are closed (divided by their sum); others are rejected
@@ -95,6 +95,7 @@ SUM_TOLERANCE = 1e-6
 
 @lru_cache(maxsize=None)
 def _helmert(K: int) -> torch.Tensor:
+    # cpu: a cached CPU table; callers take .to(x.device)
     h = torch.zeros(K - 1, K, dtype=DTYPE)
     for i in range(1, K):  # row i-1 contrasts the first i parts with part i+1
         c = 1.0 / math.sqrt(i * (i + 1))
@@ -347,10 +348,10 @@ class Simplex(Manifold):
         if self.K == 2:
             return None
         if self.K == 3:
-            p = x.numpy()
+            p = x.cpu().numpy()
             xy = np.stack([p[:, 1] + 0.5 * p[:, 2], (math.sqrt(3) / 2) * p[:, 2]], 1)
             return xy, ("ternary: part0 (left), part1 (right)", "part2 (top)"), ((0.0, 1.0), (0.0, math.sqrt(3) / 2))
-        y = ilr(x)[:, :2].numpy()
+        y = ilr(x.cpu())[:, :2].numpy()
         lo, hi = np.quantile(y, 0.005, axis=0), np.quantile(y, 0.995, axis=0)
         pad = 0.1 * (hi - lo)
         lims = tuple((float(lo[j] - pad[j]), float(hi[j] + pad[j])) for j in range(2))
@@ -405,7 +406,8 @@ class Simplex(Manifold):
 
     def prior_sample(self, n, generator=None):
         """n draws from the stationary law: ilr(x) ~ N(0, I_{K-1}) (standard logistic-normal)."""
-        return ilr_inverse(torch.randn(n, self.K - 1, dtype=DTYPE, generator=generator))
+        return ilr_inverse(torch.randn(n, self.K - 1, dtype=DTYPE, device=generator_device(generator),
+                                       generator=generator))
 
     def prior_log_prob(self, x):
         """log N(ilr(x); 0, I) in nats, w.r.t. the Aitchison volume."""

@@ -8,7 +8,7 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.kernels.igso3 import LOG_VOLUME, igso3_log_prob_and_dlog, igso3_sample_angle
-from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row, generator_device
 from heatwalk.spaces.manifold import IsotropicKernel, Manifold
 
 #: validate: rows with max |x^T x - I| above this are rejected, below it projected onto SO(3)
@@ -185,6 +185,7 @@ class SO3(IsotropicKernel, Manifold):
         """
         format, order = rotation_format, quaternion_order
         ncol = self.n_columns_for(rotation_format=format, quaternion_order=order, degrees=degrees)
+        # cpu: rows read from a file are on the CPU
         rows = torch.as_tensor(rows, dtype=DTYPE)
         if rows.dim() != 2 or rows.shape[1] != ncol:
             raise InputError(f"rotation_format {format!r} takes {ncol} columns per row, got an array of shape "
@@ -243,6 +244,7 @@ class SO3(IsotropicKernel, Manifold):
         if not isinstance(seq, str) or len(seq) != 3 or not (set(seq) <= set("xyz") or set(seq) <= set("XYZ")):
             raise InputError(f"Euler angle convention must be three axes like 'ZYZ' (intrinsic) or 'xyz' "
                              f"(extrinsic), got {seq!r}", field="seq")
+        # cpu: computed by scipy on the CPU
         return torch.as_tensor(Rotation.from_euler(seq, a, degrees=degrees).as_matrix(), dtype=DTYPE)
 
     # --- geometry --------------------------------------------------------------------------
@@ -306,7 +308,7 @@ class SO3(IsotropicKernel, Manifold):
 
     def random_uniform(self, n, generator=None):
         """Haar-distributed rotations: normalised 4-D Gaussians are uniform unit quaternions."""
-        q = torch.randn(n, 4, dtype=DTYPE, generator=generator)
+        q = torch.randn(n, 4, dtype=DTYPE, device=generator_device(generator), generator=generator)
         return quaternion_to_matrix(q / torch.linalg.vector_norm(q, dim=-1, keepdim=True))
 
     @property
@@ -354,7 +356,7 @@ class SO3(IsotropicKernel, Manifold):
         """Rotation axis directions as longitude/latitude in degrees (the angle is not shown)."""
         import numpy as np
 
-        axis = vee(x).numpy()
+        axis = vee(x).cpu().numpy()
         axis /= np.maximum(np.linalg.norm(axis, axis=1, keepdims=True), 1e-12)
         lat = np.degrees(np.arcsin(np.clip(axis[:, 2], -1, 1)))
         lon = np.degrees(np.arctan2(axis[:, 1], axis[:, 0]))

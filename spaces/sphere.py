@@ -9,7 +9,7 @@ import torch
 from heatwalk.checks import check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.kernels.sphere_heat import log_sphere_area, sample_sphere_radius, sphere_heat_log_prob_and_score
-from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row, generator_device
 from heatwalk.spaces.manifold import IsotropicKernel, Manifold
 
 #: points whose norm is within this of 1 are renormalised by ``validate``; others are rejected
@@ -164,7 +164,7 @@ class Sphere(IsotropicKernel, Manifold):
         return self.to_tangent(x, z)
 
     def random_uniform(self, n, generator=None):
-        z = torch.randn(n, self.d + 1, dtype=DTYPE, generator=generator)
+        z = torch.randn(n, self.d + 1, dtype=DTYPE, device=generator_device(generator), generator=generator)
         return z / torch.linalg.vector_norm(z, dim=-1, keepdim=True)
 
     @property
@@ -201,7 +201,7 @@ class Sphere(IsotropicKernel, Manifold):
             return None
         import numpy as np
 
-        v = x.numpy()
+        v = x.cpu().numpy()
         lat = np.degrees(np.arcsin(np.clip(v[:, 2], -1, 1)))
         lon = np.degrees(np.arctan2(v[:, 1], v[:, 0]))
         return np.stack([lon, lat], 1), ("longitude (deg)", "latitude (deg)"), ((-180, 180), (-90, 90))

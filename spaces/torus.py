@@ -9,7 +9,7 @@ import torch
 from heatwalk.checks import check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.kernels.wrapped_normal import LOG_TWO_PI, TWO_PI, wrap_angle, wrapped_normal_log_prob_and_score
-from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row
+from heatwalk.spaces.base import DTYPE, Option, as_points, first_bad_row, generator_device
 from heatwalk.spaces.manifold import Manifold
 
 #: inputs of larger magnitude than this (radians) are taken to be in the wrong unit
@@ -103,7 +103,7 @@ class Torus(Manifold):
         return torch.randn(x.shape, dtype=x.dtype, device=x.device, generator=generator)
 
     def random_uniform(self, n, generator=None):
-        u = torch.rand(n, self.n, dtype=DTYPE, generator=generator)
+        u = torch.rand(n, self.n, dtype=DTYPE, device=generator_device(generator), generator=generator)
         return wrap_angle(TWO_PI * u - math.pi)
 
     @property
@@ -156,6 +156,7 @@ class Torus(Manifold):
         """The first two angles (radians) on [-π, π)²; a single angle is drawn against 0."""
         import numpy as np
 
+        x = x.cpu()
         a = x[:, :2].numpy() if self.n >= 2 else np.stack([x[:, 0].numpy(), np.zeros(x.shape[0])], 1)
         lim = (-math.pi, math.pi)
         return a, ("angle 0 (rad)", "angle 1 (rad)" if self.n >= 2 else ""), (lim, lim)

@@ -85,6 +85,17 @@ class Conditioning:
     def empty(self) -> bool:
         return self.labels is None and self.guide is None and self.given is None
 
+    def to(self, device) -> "Conditioning":
+        """The same conditioning with its tensors (labels, fixed values and masks) on ``device``."""
+        given = self.given
+        if isinstance(given, dict):
+            given = {i: v.to(device) for i, v in given.items()}
+        elif given is not None:
+            given = type(given)(mask=given.mask.to(device), values=given.values.to(device))
+        labels = None if self.labels is None else self.labels.to(device)
+        return Conditioning(labels=labels, guidance=self.guidance, guide=self.guide, guide_scale=self.guide_scale,
+                            given=given, given_method=self.given_method)
+
 
 def check_weight(name: str, value) -> float:
     """A finite real number (guidance weights and scales may be negative, never NaN or infinite)."""

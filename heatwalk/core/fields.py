@@ -24,8 +24,8 @@ import torch
 from heatwalk.core.schedule import TimeSchedule
 
 
-def _batch_times(t, n: int) -> torch.Tensor:
-    t = torch.as_tensor(t, dtype=torch.float64)
+def _batch_times(t, n: int, device) -> torch.Tensor:
+    t = torch.as_tensor(t, dtype=torch.float64, device=device)
     return t.expand(n) if t.dim() == 0 else t
 
 
@@ -52,7 +52,7 @@ class ScoreField:
         return x if self._constrain_fn is None else self._constrain_fn(x, t, generator, final)
 
     def score(self, x: torch.Tensor, t) -> torch.Tensor:
-        return self._score_fn(x, _batch_times(t, x.shape[0]))
+        return self._score_fn(x, _batch_times(t, x.shape[0], x.device))
 
     def grid(self, steps: int) -> torch.Tensor:
         """steps + 1 times, geometric from t_max down to t_min."""
@@ -84,14 +84,14 @@ class X0ProbabilityField:
 
     def log_x0_probs(self, xt: torch.Tensor, t) -> torch.Tensor:
         """(n, L, K) log p_θ(x_0,l = a | x_t), -inf on states that cannot have produced x_t."""
-        return self._log_x0_fn(xt, _batch_times(t, xt.shape[0]))
+        return self._log_x0_fn(xt, _batch_times(t, xt.shape[0], xt.device))
 
     def x0_probs(self, xt: torch.Tensor, t) -> torch.Tensor:
         return self.log_x0_probs(xt, t).exp()
 
     def log_reverse_rates(self, xt: torch.Tensor, t) -> torch.Tensor:
         """(n, L, n_states) log r_θ of jumping at position l to state v at time t."""
-        t = _batch_times(t, xt.shape[0])
+        t = _batch_times(t, xt.shape[0], xt.device)
         return self.space.log_reverse_rates(xt, self.log_x0_probs(xt, t), t)
 
     def grid(self, steps: int) -> torch.Tensor:

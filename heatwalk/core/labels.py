@@ -52,6 +52,7 @@ def encode_labels(labels, n: int) -> tuple[list, torch.Tensor]:
                          f"strings, not both", row=i, field="labels")
     classes = sorted(set(values))
     index = {c: k for k, c in enumerate(classes)}
+    # cpu: labels are parsed on the CPU; fit and Model move them
     return classes, torch.tensor([index[v] for v in values], dtype=torch.int64)
 
 
@@ -71,4 +72,5 @@ def indices_for(classes: list | None, label, n: int) -> torch.Tensor | None:
         if v not in index:
             raise InputError(f"label: {v!r} was never seen in training; classes: {classes}", field="label")
         out.append(index[v])
+    # cpu: labels are parsed on the CPU; fit and Model move them
     return torch.tensor(out, dtype=torch.int64).expand(n).clone()

@@ -25,6 +25,7 @@ from torch import nn
 
 from heatwalk.checks import check_choice, check_positive_int
 from heatwalk.core.conditioning import GIVEN_METHODS, Conditioning, check_weight
+from heatwalk.core.devices import make_generator, resolve_device, to_device
 from heatwalk.core.labels import indices_for
 from heatwalk.core.model_files import meta_network, read_model_config, read_weights, weights_path, write_weights
 from heatwalk.core.networks import network_name
@@ -61,7 +62,32 @@ class Model:
         self.objective = objective
         self.network = network.eval()
         self.record = dict(record or {})
-        self.losses = None if losses is None else torch.as_tensor(losses, dtype=torch.float64).reshape(-1)
+        # cpu: the loss history is a record, kept on the CPU
+        self.losses = None if losses is None else torch.as_tensor(losses, dtype=torch.float64).cpu().reshape(-1)
+
+    @property
+    def device(self) -> torch.device:
+        """The device the network's weights are on (where sampling and likelihoods run by default)."""
+        # cpu: a network without weights runs on the CPU
+        return next(iter(self.network.parameters()), torch.empty(0)).device
+
+    def to(self, device) -> "Model":
+        """Move the network to ``device`` ("cpu", "cuda", "cuda:N", "auto" or a torch.device); returns the model."""
+        self.network.to(resolve_device(device))
+        return self
+
+    def _on(self, device) -> torch.device:
+        """The device of a call: ``device`` (the network is moved there) or, for None, the network's."""
+        if device is None:
+            return self.device
+        self.to(device)
+        return self.device
+
+    def _points_on(self, x, device: torch.device):
+        """Points ``x`` on ``device``: tensors are moved as they are, other input is validated first."""
+        if not (isinstance(x, torch.Tensor) or (isinstance(x, tuple) and all(isinstance(v, torch.Tensor) for v in x))):
+            x = self.space.validate(x)
+        return to_device(x, device)
 
     @property
     def field(self):
@@ -92,8 +118,13 @@ class Model:
     def sample(self, n: int, steps: int = 500, sampler: str | None = None, seed: int | None = 0,
                generator: torch.Generator | None = None, progress: bool = True, *, label=None,
                guidance: float = 1.0, given: dict | None = None, given_method: str | None = None, guide=None,
-               guide_scale: float = 1.0, check_finite: bool = True, **options) -> torch.Tensor:
+               guide_scale: float = 1.0, check_finite: bool = True, device=None, **options) -> torch.Tensor:
         """Draw ``n`` points with ``steps`` reverse steps of ``sampler`` (default: the objective's).
+
+        device : where to sample ("cpu", "cuda", "cuda:N", "auto"); the network is moved there and the samples
+            are returned there. Default: the network's device. The generator (made from ``seed`` on that
+            device, or ``generator``, which must be on it) drives every draw: the same seed gives the same
+            samples on the same kind of device.
 
         Conditioning (see :mod:`heatwalk.core.conditioning`):
 
@@ -111,8 +142,9 @@ class Model:
         entry = self.sampler(sampler)
         cond = self.conditioning(n, label=label, guidance=guidance, given=given, given_method=given_method,
                                  guide=guide, guide_scale=guide_scale)
-        if generator is None:
-            generator = torch.Generator().manual_seed(0 if seed is None else seed)
+        device = self._on(device)
+        generator = _generator_for(generator, seed, device)
+        cond = cond.to(device)
         field = self.objective.field(self.network, None if cond.empty else cond)
         with torch.no_grad(), arithmetic_failures_as_input_errors("sampling"):
             x = entry.function(field, n, steps=steps, generator=generator, progress=progress, **options)
@@ -143,31 +175,35 @@ class Model:
                             given_method=given_method)
 
     def elbo(self, x, n_time_samples: int = 32, seed: int | None = 0,
-             generator: torch.Generator | None = None, label=None, **options):
+             generator: torch.Generator | None = None, label=None, device=None, **options):
         """Upper bound on -log p(x) per data point, from the objective's ELBO (nats; see the objective).
 
-        Objectives without a likelihood bound raise :class:`InputError`.
+        Objectives without a likelihood bound raise :class:`InputError`. ``device``: as in :meth:`sample`
+        (the points are moved there).
         """
-        if generator is None:
-            generator = torch.Generator().manual_seed(0 if seed is None else seed)
-        x = self.space.validate(x)
-        labels = indices_for(self.classes, label, x.shape[0])
+        device = self._on(device)
+        generator = _generator_for(generator, seed, device)
+        x = self.space.validate(self._points_on(x, device))
+        labels = _labels_on(indices_for(self.classes, label, x.shape[0]), device)
         with torch.no_grad():
             est = self.objective.elbo(self.network, x, generator, n_time_samples, labels=labels, **options)
         check_finite_log_prob({"log_prob": est.nats}, what="ELBO")
         return est
 
-    def log_prob(self, x, label=None, **options) -> dict:
+    def log_prob(self, x, label=None, device=None, **options) -> dict:
         """Log-likelihood of points ``x`` in nats, w.r.t. the space's reference measure.
 
         For score models: the probability-flow ODE (exact up to solver tolerance); for discrete
         models: the negative ELBO, a lower bound on log p, flagged by ``bound = True``.
         ``label`` (one class or one per point) gives the conditional likelihood of a labelled model.
+        ``device``: as in :meth:`sample`; the points are moved there and the results are returned there.
         ``options`` go to the objective (e.g. ``method``, ``rtol``, ``divergence``, ``n_probes``).
         """
+        device = self._on(device)
+        x = self._points_on(x, device)
         if label is not None:
             x = self.space.validate(x)
-            options["labels"] = indices_for(self.classes, label, x.shape[0])
+            options["labels"] = _labels_on(indices_for(self.classes, label, self.space.n_points(x)), device)
         with arithmetic_failures_as_input_errors("log-likelihood"):
             return check_finite_log_prob(self.objective.log_prob(self.network, x, **options))
 
@@ -232,10 +268,25 @@ def _check_network_fits(model: Model, where: Path) -> None:
     field = model.objective.field(model.network)
     try:
         with torch.no_grad(), torch.random.fork_rng(devices=[]):
+            # cpu: a loaded model is on the CPU
             model.sampler().function(field, 2, steps=1, generator=torch.Generator().manual_seed(0), progress=False)
     except (RuntimeError, IndexError) as e:
         raise InputError(f"{where}: the network does not fit the space {model.space!r} and its objective "
                          f"({str(e).splitlines()[0]})", field="network") from None
+
+
+def _generator_for(generator, seed, device: torch.device) -> torch.Generator:
+    """``generator`` (checked to be on ``device``), or a new one on ``device`` seeded with ``seed`` (None: 0)."""
+    if generator is None:
+        return make_generator(0 if seed is None else seed, device)
+    if generator.device.type != device.type:
+        raise InputError(f"generator is on {generator.device} but the model runs on {device}; make it with "
+                         f"torch.Generator(device={str(device)!r})", field="generator")
+    return generator
+
+
+def _labels_on(labels, device):
+    return None if labels is None else labels.to(device)
 
 
 def load(path) -> Model:
@@ -285,4 +336,4 @@ def _read_losses(path: Path, first_step: int) -> torch.Tensor:
             raise InputError(f"{path}, line {lineno}: step {step}, expected {expected} (steps run on from "
                              f"resumed_from_step + 1 = {first_step}, one per line)", row=lineno - 2, field="step")
         values.append(value)
-    return torch.tensor(values, dtype=torch.float64)
+    return torch.tensor(values, dtype=torch.float64)  # cpu: read from a file

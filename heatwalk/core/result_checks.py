@@ -24,10 +24,10 @@ class TrainingDiverged(InputError, FloatingPointError):
 
 def _bad_rows(x, n: int) -> torch.Tensor:
     """Rows of a batch (a tensor or a tuple of factor tensors) with a NaN or infinite entry."""
-    bad = torch.zeros(n, dtype=torch.bool)
+    bad = torch.zeros(n, dtype=torch.bool)  # cpu: a flag per row, reduced on the CPU
     for part in x if isinstance(x, (tuple, list)) else (x,):
         if isinstance(part, torch.Tensor) and (part.is_floating_point() or part.is_complex()):
-            bad |= ~torch.isfinite(part.reshape(n, -1)).all(dim=1)
+            bad |= ~torch.isfinite(part.reshape(n, -1)).all(dim=1).cpu()
     return bad
 
 
@@ -46,7 +46,7 @@ def check_finite_samples(x, n: int, sampler: str, steps: int, others: list[str] 
 
 def check_finite_log_prob(result: dict, what: str = "log-likelihood") -> dict:
     """Return ``result`` if its ``"log_prob"`` entries are all finite, else raise :class:`NonFiniteResult`."""
-    lp = torch.as_tensor(result["log_prob"])
+    lp = torch.as_tensor(result["log_prob"]).cpu()  # cpu: checked on the CPU
     bad = ~torch.isfinite(lp.reshape(-1))
     k = int(bad.sum())
     if k:

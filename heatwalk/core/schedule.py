@@ -16,6 +16,7 @@ import torch
 
 from heatwalk.checks import check_choice, check_positive_int
 from heatwalk.errors import InputError
+from heatwalk.spaces.base import generator_device
 
 GRID_SPACINGS = ("geometric", "linear")
 
@@ -38,14 +39,16 @@ class TimeSchedule:
 
     def sample(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
         """n training times, log-uniform on [t_min, t_max] (float64)."""
-        u = torch.rand(n, dtype=torch.float64, generator=generator)
+        u = torch.rand(n, dtype=torch.float64, device=generator_device(generator), generator=generator)
         return torch.exp(self._log_min + self._log_span * u)
 
     def grid(self, steps: int, spacing: str = "geometric") -> torch.Tensor:
-        """steps+1 times from t_max down to t_min (float64), geometric or linear in t."""
+        """steps+1 times from t_max down to t_min (float64, on the CPU: samplers move them), geometric or linear."""
         check_positive_int("steps", steps)
         if check_choice("spacing", spacing, GRID_SPACINGS) == "linear":
+            # cpu: sampling grids are made on the CPU; samplers move them to the points' device
             return torch.linspace(self.t_max, self.t_min, steps + 1, dtype=torch.float64)
+        # cpu: as above
         return torch.logspace(math.log10(self.t_max), math.log10(self.t_min), steps + 1, dtype=torch.float64)
 
     @property
@@ -78,12 +81,13 @@ class ClockSchedule:
 
     def sample(self, n: int, generator: torch.Generator | None = None) -> torch.Tensor:
         """n clock times, uniform on [0, 1] (float64)."""
-        return torch.rand(n, dtype=torch.float64, generator=generator)
+        return torch.rand(n, dtype=torch.float64, device=generator_device(generator), generator=generator)
 
     def grid(self, steps: int, spacing: str = "linear") -> torch.Tensor:
         """steps + 1 clock times from 1 down to 0 (the factors' own grids follow from t_i(τ))."""
         check_positive_int("steps", steps)
         check_choice("spacing", spacing, ("linear",))
+        # cpu: sampling grids are made on the CPU; samplers move them to the points' device
         return torch.linspace(1.0, 0.0, steps + 1, dtype=torch.float64)
 
     @property

@@ -17,10 +17,18 @@ Interruption: SIGINT and SIGTERM stop the loop at the end of the current step
 (:mod:`heatwalk.core.interrupts`); with checkpoints on, a checkpoint of that
 step is written first, then :class:`~heatwalk.core.interrupts.Interrupted`
 (a ``KeyboardInterrupt``) is raised.
+
+Scale: ``device`` chooses where the run happens (:mod:`heatwalk.core.devices`);
+started by torchrun, ``fit`` trains data-parallel with DistributedDataParallel,
+``batch_size`` being the global batch, and gives the same model for any number
+of processes up to floating-point summation order (:mod:`heatwalk.core.parallel`
+says how); data larger than memory is read batch by batch from a memory-mapped
+array, a Dataset or a DataLoader (:mod:`heatwalk.core.data_source`).
 """
 
 from __future__ import annotations
 
+import gc
 import hashlib
 import json
 import math
@@ -32,6 +40,9 @@ import torch
 from tqdm.auto import tqdm
 
 from heatwalk.checks import check_number, check_positive_int
+from heatwalk.core import parallel
+from heatwalk.core.data_source import data_source
+from heatwalk.core.devices import make_generator, resolve_device, set_threads
 from heatwalk.core.interrupts import Interrupted, stop_requests
 from heatwalk.core.labels import encode_labels
 from heatwalk.core.model import Model
@@ -57,19 +68,47 @@ class _Run:
     opt: torch.optim.Optimizer
     sched: torch.optim.lr_scheduler.LRScheduler
     gen: torch.Generator
+    #: what the loss calls: the network, or its DistributedDataParallel wrapper in a data-parallel run
+    forward: torch.nn.Module | None = None
+    #: this process's share of every global batch
+    share: parallel.Share = parallel.WHOLE
+
+
+@dataclass
+class _Settings:
+    """The arguments of :func:`fit` that the run itself uses."""
+
+    steps: int
+    batch_size: int
+    lr: float
+    ema_decay: float
+    seed: int
+    network: dict | None
+    time_range: tuple | None
+    checkpoint_dir: object
+    checkpoint_every: int
+    resume: bool
+    progress: bool
+    labels: object
+    label_dropout: float
+    inpainting: bool
 
 
 def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e-3,
         ema_decay: float = 0.999, seed: int = 0, network: dict | None = None,
         time_range: tuple[float, float] | None = None, checkpoint_dir=None, checkpoint_every: int = 1000,
         resume: bool = False, progress: bool = True, threads: int | None = None, labels=None,
-        label_dropout: float = 0.1, inpainting: bool = False) -> Model:
+        label_dropout: float = 0.1, inpainting: bool = False, device=None) -> Model:
     """Fit a diffusion model to ``data`` (points on ``space``) and return a :class:`Model`.
 
     Parameters
     ----------
     space : the state space; ``data`` is validated by ``space.validate``.
-    steps, batch_size, lr : Adam steps, batch size, learning rate (cosine-decayed to lr/10).
+    data : points in memory (tensor, array, list; a tuple per factor for a product), a numpy memory-mapped
+        array or a map-style torch Dataset (rows read batch by batch), or an iterable of batches such as a
+        DataLoader (each item one global batch); see :mod:`heatwalk.core.data_source`.
+    steps, batch_size, lr : Adam steps, batch size, learning rate (cosine-decayed to lr/10). In a data-parallel
+        run ``batch_size`` is the global batch, split between the processes.
     ema_decay : decay of the exponential moving average whose weights the model keeps
         (warmed up as min(ema_decay, (1+k)/(10+k)) at step k).
     seed : seeds network initialisation, batches and diffusion noise.
@@ -80,45 +119,84 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
         there, which must come from the same settings and data. With no checkpoint there, training starts
         from step 0 with a warning (so a job that always passes ``resume=True`` works on its first run).
         A finished run resumed returns the finished model at once.
-    threads : torch intra-op threads for the run (default: leave torch's setting).
+    threads : torch intra-op threads during the run (restored afterwards; default: torch's own setting, the
+        number of physical cores or ``OMP_NUM_THREADS``; torchrun sets 1 per process).
     labels : one class name (int or string) per data point: the model learns the law given the class and,
         with each label dropped with probability ``label_dropout`` (default 0.1), the unconditional law,
         for classifier-free guidance (``Model.sample(label=..., guidance=...)``).
     inpainting : also train the network to condition on known coordinates (torus, R^d), so that
         ``Model.sample(given=...)`` is exact (see :mod:`heatwalk.core.conditioning`).
+    device : "cpu" (default), "cuda", "cuda:N" or "auto" (:func:`heatwalk.core.devices.resolve_device`).
+
+    Data-parallel runs
+    ------------------
+    Under torchrun (or with a process group already initialised) every process runs ``fit`` with the same
+    arguments; the process group is started here when needed (gloo on the CPU, nccl on CUDA) and destroyed
+    at the end if it was started here. Each step every rank draws the global batch's indices, times and noise
+    from the one seeded generator and evaluates its slice (:mod:`heatwalk.core.parallel`), so the result does
+    not depend on the number of processes (up to floating-point summation order). Rank 0 alone writes
+    checkpoints; every rank can resume from the same checkpoint, whatever the number of processes that wrote
+    it. The returned model is the same on every rank: save it from one only
+    (``if heatwalk.core.parallel.is_main_process(): model.save(...)``).
     """
     _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads)
-    x_data = space.validate(data)
-    n_data = space.n_points(x_data)
-    if n_data < 2:
-        raise InputError(f"need at least 2 data points to fit, got {n_data}", field="data")
-    if threads is not None:
-        torch.set_num_threads(threads)
+    device = resolve_device(device)
+    before = set_threads(threads)
+    started = not parallel.is_distributed() and parallel.launched()
+    try:
+        share = parallel.ensure_started(device)
+        settings = _Settings(steps, batch_size, lr, ema_decay, seed, network, time_range, checkpoint_dir,
+                             checkpoint_every, resume, progress, labels, label_dropout, inpainting)
+        return _fit(space, data, share, device, settings)
+    finally:
+        torch.set_num_threads(before)
+        if started:
+            # the DistributedDataParallel wrapper must be gone before its process group is destroyed: a reducer
+            # freed afterwards holds the group's last reference, and its destructor can deadlock on the GIL
+            gc.collect()
+            parallel.shutdown()
 
-    classes, label_idx = (None, None) if labels is None else encode_labels(labels, n_data)
-    objective = make_objective(space, time_range=time_range, classes=classes, label_dropout=label_dropout,
-                               inpainting=inpainting)
-    if resume and checkpoint_dir is None:
+
+def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings) -> Model:
+    """``fit`` once the device and the processes are settled."""
+    if o.batch_size < share.world:
+        raise InputError(f"batch_size {o.batch_size} is smaller than the number of processes {share.world}: "
+                         f"every process needs at least one row of the global batch", field="batch_size")
+    source = data_source(space, data, device)
+    n_data = source.n
+    if n_data is not None and n_data < 2:
+        raise InputError(f"need at least 2 data points to fit, got {n_data}", field="data")
+    classes, label_idx = (None, None) if o.labels is None else _labels(o.labels, n_data, source, device)
+    objective = make_objective(space, time_range=o.time_range, classes=classes, label_dropout=o.label_dropout,
+                               inpainting=o.inpainting)
+    if o.resume and o.checkpoint_dir is None:
         raise InputError("resume=True needs a checkpoint_dir", field="resume")
-    ckpt_path = _checkpoint_path(checkpoint_dir)
-    run = _start(objective, network, lr, steps, seed)
+    ckpt_path = _checkpoint_path(o.checkpoint_dir) if share.rank == 0 else _checkpoint_file(o.checkpoint_dir)
+    run = _start(objective, o.network, o.lr, o.steps, o.seed, device, share)
     run_config = {
         "space": space.config(), "objective": objective.config(),
         "network": {"name": network_name(run.net), "config": run.net.config()},
-        "steps": steps, "batch_size": batch_size, "lr": lr, "ema_decay": ema_decay, "seed": seed,
-        "n_data": n_data, "data": data_fingerprint(x_data, label_idx),
+        "steps": o.steps, "batch_size": o.batch_size, "lr": o.lr, "ema_decay": o.ema_decay, "seed": o.seed,
+        "n_data": n_data, "data": source_fingerprint(source, label_idx),
     }
     start, losses = 0, []
-    if resume:
+    if o.resume:
         if ckpt_path.is_file():
             start, losses = _restore(ckpt_path, run_config, run)
-        else:
-            warn(f"nothing to resume: no checkpoint in {checkpoint_dir}; training starts from step 0")
+        elif share.rank == 0:
+            warn(f"nothing to resume: no checkpoint in {o.checkpoint_dir}; training starts from step 0")
+        start = parallel.agree(start, share, "the checkpoint step to resume from")
+    if source.streams:
+        source.skip(start)
 
     t0 = time.perf_counter()
-    _train(objective, run, (x_data, label_idx), start, steps, batch_size, ema_decay, progress,
-           lambda step: _save_checkpoint(ckpt_path, run_config, step, run, losses) if ckpt_path else None,
-           checkpoint_every, losses)
+    try:
+        _train(objective, run, (source, label_idx), start, o.steps, o.batch_size, o.ema_decay,
+               o.progress and share.rank == 0,
+               lambda step: _checkpoint(ckpt_path, run_config, step, run, losses) if ckpt_path else None,
+               o.checkpoint_every, losses)
+    finally:
+        run.forward = None  # drop the DistributedDataParallel wrapper (see fit)
     elapsed = time.perf_counter() - t0
     with torch.no_grad():
         for p, e in zip(run.net.parameters(), run.ema):
@@ -129,9 +207,20 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
         "mean_loss_last_100_steps": (sum(tail) / len(tail)) if tail else None,
         "train_seconds": elapsed,
         "resumed_from_step": start,
+        "processes": share.world,
+        "device": str(device),
     }
     # the loss of every step run here (step resumed_from_step + 1 onwards), saved as losses.csv by Model.save
-    return Model(space, objective, run.net, record, losses=torch.tensor(losses, dtype=torch.float64))
+    return Model(space, objective, run.net, record, losses=torch.tensor(losses, dtype=torch.float64))  # cpu: a record
+
+
+def _labels(labels, n_data, source, device):
+    """Class names and the (n_data,) class index of every data point, on ``device``."""
+    if source.streams:
+        raise InputError("labels= needs the data points themselves (in memory, a memory-mapped array or a "
+                         "Dataset), not an iterable of batches", field="labels")
+    classes, label_idx = encode_labels(labels, n_data)
+    return classes, label_idx.to(device)
 
 
 def _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads) -> None:
@@ -155,6 +244,18 @@ def data_fingerprint(x_data, label_idx=None) -> dict:
     return {"n_points": int(parts[0].shape[0]), "sha256": h.hexdigest()}
 
 
+def source_fingerprint(source, label_idx) -> dict:
+    """The data fingerprint of points in memory; for memory-mapped arrays, Datasets and streams only their size
+    (hashing them would read all of them)."""
+    if getattr(source, "x", None) is not None:
+        return data_fingerprint(source.x, label_idx)
+    return {"n_points": source.n, "sha256": None}
+
+
+def _checkpoint_file(checkpoint_dir) -> Path | None:
+    return None if checkpoint_dir is None else Path(checkpoint_dir) / CHECKPOINT_NAME
+
+
 def _checkpoint_path(checkpoint_dir) -> Path | None:
     """``checkpoint_dir / checkpoint.pt``, the folder made if needed, stale temporaries of earlier crashes removed."""
     if checkpoint_dir is None:
@@ -174,47 +275,61 @@ def _checkpoint_path(checkpoint_dir) -> Path | None:
     return path
 
 
-def _start(objective, network: dict | None, lr: float, steps: int, seed: int) -> _Run:
-    """Network (initialised from ``seed``), EMA copy, Adam with a cosine schedule to lr/10, generator.
-
-    The network is first built on the meta device (no memory) to refuse an oversized one.
-    """
+def _start(objective, network: dict | None, lr: float, steps: int, seed: int, device: torch.device,
+           share: parallel.Share) -> _Run:
+    """Network (initialised from ``seed`` on the CPU, then moved to ``device``), EMA copy, Adam with a cosine
+    schedule to lr/10, the generator on ``device``, and the DistributedDataParallel wrapper of a multi-process run."""
     with torch.random.fork_rng(devices=[]), torch.device("meta"):
         check_parameter_count(objective.default_network(**(network or {})))
     with torch.random.fork_rng(devices=[]):
         torch.manual_seed(seed)
         net = objective.default_network(**(network or {}))
+    net = net.to(device)
     ema = [p.detach().clone() for p in net.parameters()]
     opt = torch.optim.Adam(list(net.parameters()), lr=lr)
     sched = torch.optim.lr_scheduler.LambdaLR(
         opt, lambda k: 0.1 + 0.9 * 0.5 * (1 + math.cos(math.pi * min(k, steps) / steps)))
-    return _Run(net, ema, opt, sched, torch.Generator().manual_seed(seed))
+    forward = net
+    if not share.whole:
+        ids = [device.index] if device.type == "cuda" else None
+        forward = torch.nn.parallel.DistributedDataParallel(net, device_ids=ids)
+    return _Run(net, ema, opt, sched, make_generator(seed, device), forward, share)
+
+
+def _batch(run: _Run, data, batch_size: int):
+    """The next global batch and its class indices (None without labels).
+
+    Row sources draw the batch's row indices from the run's generator; a stream gives its next batch.
+    """
+    source, label_idx = data
+    if source.streams:
+        return source.next(), None
+    idx = torch.randint(source.n, (batch_size,), generator=run.gen, device=run.gen.device)
+    return source.batch(idx), (None if label_idx is None else label_idx[idx])
 
 
 def _train(objective, run: _Run, data, start, steps, batch_size, ema_decay, progress, save, every, losses) -> None:
     """Adam steps start … steps-1 with EMA updates, each loss appended to ``losses``; ``save(step)`` at
     checkpoint times and, on SIGINT / SIGTERM, at the end of the current step before raising Interrupted.
 
-    ``data`` is (points, class indices or None).
+    ``data`` is (the data source, class indices or None). Every rank draws the randomness of the whole global
+    batch (``objective.draw``) and evaluates its share (``objective.share_loss``); the losses recorded are
+    those of the global batch (averaged over ranks).
     """
     with stop_requests() as stop:
         _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, save, every, losses, stop)
 
 
 def _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, save, every, losses, stop):
-    x_data, label_idx = data
-    space, n_data = objective.space, objective.space.n_points(data[0])
     params = list(run.net.parameters())
     lr = run.opt.param_groups[0].get("initial_lr", run.opt.param_groups[0]["lr"])
     run.net.train()
     bar = tqdm(range(start, steps), desc="fitting", disable=not progress, initial=start, total=steps)
     running = losses[-1] if losses else None
     for step in bar:
-        idx = torch.randint(n_data, (batch_size,), generator=run.gen)
-        if label_idx is None:
-            loss = objective.loss(run.net, space.take(x_data, idx), run.gen)
-        else:
-            loss = objective.loss(run.net, space.take(x_data, idx), run.gen, labels=label_idx[idx])
+        x0, labels = _batch(run, data, batch_size)
+        drawn = objective.draw(x0, run.gen, labels)
+        loss = objective.share_loss(run.forward, drawn, run.share)
         run.opt.zero_grad(set_to_none=True)
         loss.backward()
         run.opt.step()
@@ -224,7 +339,7 @@ def _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, 
             # keeps a share decay^steps of the random initial weights in the average
             decay = min(ema_decay, (1.0 + step) / (10.0 + step))
             torch._foreach_lerp_(run.ema, [p.detach() for p in params], 1.0 - decay)
-        value = check_finite_loss(float(loss.detach()), step + 1, lr)
+        value = check_finite_loss(float(parallel.all_mean(loss.detach(), run.share)), step + 1, lr)
         losses.append(value)
         running = value if running is None else 0.98 * running + 0.02 * value
         if progress and (step % 25 == 0 or step == steps - 1):
@@ -237,6 +352,15 @@ def _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, 
     bar.close()
 
 
+def _checkpoint(path: Path, run_config, step, run: _Run, losses) -> Path:
+    """Checkpoint at ``step``: rank 0 writes it, then every rank waits until it is on disk."""
+    if run.share.rank == 0:
+        _save_checkpoint(path, run_config, step, run, losses)
+    if not run.share.whole:
+        torch.distributed.barrier()
+    return path
+
+
 def _save_checkpoint(path: Path, run_config, step, run: _Run, losses) -> Path:
     state = {
         "run_config": json.dumps(run_config, sort_keys=True),
@@ -246,7 +370,8 @@ def _save_checkpoint(path: Path, run_config, step, run: _Run, losses) -> Path:
         "optimizer": run.opt.state_dict(),
         "lr_schedule": run.sched.state_dict(),
         "generator": run.gen.get_state(),
-        "losses": torch.tensor(losses, dtype=torch.float64),
+        "generator_device": run.gen.device.type,
+        "losses": torch.tensor(losses, dtype=torch.float64),  # cpu: a record
     }
     with atomic_path(path) as tmp:
         torch.save(state, tmp)
@@ -297,6 +422,10 @@ def _restore(path: Path, run_config, run: _Run) -> tuple[int, list[float]]:
                 e.copy_(s)
         run.opt.load_state_dict(state["optimizer"])
         run.sched.load_state_dict(state["lr_schedule"])
+        made_on = state.get("generator_device", "cpu")
+        if made_on != run.gen.device.type:
+            raise InputError(f"{path}: checkpoint was made on a {made_on} device, whose random numbers differ "
+                             f"from {run.gen.device.type}'s; resume on {made_on}", field="device")
         run.gen.set_state(state["generator"])
     except (RuntimeError, KeyError, ValueError, TypeError, IndexError) as e:
         raise InputError(f"{path}: the checkpoint's tensors do not fit this run's network or optimiser "

@@ -40,6 +40,7 @@ class TransformerDenoiser(nn.Module):
         self._config = dict(length=length, n_inputs=n_inputs, n_outputs=n_outputs, time_dim=time_dim,
                             d_model=d_model, n_layers=n_layers, n_heads=n_heads)
         self.token = nn.Linear(n_inputs, d_model)
+        # cpu: networks are initialised on the CPU from the seed, then moved
         self.position = nn.Parameter(0.02 * torch.randn(length, d_model))
         self.time = nn.Sequential(nn.Linear(time_dim, d_model), nn.SiLU(), nn.Linear(d_model, d_model))
         layer = nn.TransformerEncoderLayer(d_model, n_heads, dim_feedforward=4 * d_model, dropout=0.0,

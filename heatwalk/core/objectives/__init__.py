@@ -1,4 +1,5 @@
-"""Training objectives. The fit loop only calls ``objective.loss(net, x0, generator)``.
+"""Training objectives. The fit loop only calls ``objective.draw(x0, generator, labels)`` (the randomness of a
+global batch) and ``objective.share_loss(net, drawn, share)`` (the loss of a process's rows; ``loss`` is both).
 
 Which objective a space uses is named by ``space.objective_name`` and looked
 up in ``OBJECTIVES``, so the loop never branches on the kind of space. Every

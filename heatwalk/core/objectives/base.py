@@ -30,8 +30,10 @@ import torch
 from torch import nn
 
 from heatwalk.checks import check_number
+from heatwalk.core.parallel import WHOLE, Share
 from heatwalk.core.schedule import TimeSchedule
 from heatwalk.errors import InputError
+from heatwalk.spaces.base import generator_device
 
 
 class Objective(ABC):
@@ -111,11 +113,13 @@ class Objective(ABC):
                 raise InputError("this model was fitted without labels", field="label")
         else:
             if labels is None:
-                labels = torch.full(t.shape, self.n_classes, dtype=torch.int64)
+                labels = torch.full(t.shape, self.n_classes, dtype=torch.int64, device=t.device)
             parts.append(torch.nn.functional.one_hot(labels, self.n_classes + 1).to(parts[0].dtype))
         if self.inpainting:
-            flags = torch.zeros(t.shape[0], self.space.ambient_shape[0], dtype=parts[0].dtype) if known is None \
-                else known.to(parts[0].dtype).expand(t.shape[0], -1)
+            if known is None:
+                flags = torch.zeros(t.shape[0], self.space.ambient_shape[0], dtype=parts[0].dtype, device=t.device)
+            else:
+                flags = known.to(parts[0].dtype).expand(t.shape[0], -1)
             parts.append(flags)
         elif known is not None:
             raise InputError("this model was not trained for inpainting", field="given_method")
@@ -123,11 +127,11 @@ class Objective(ABC):
 
     def random_known(self, n: int, generator) -> torch.Tensor:
         """Training masks (n, d) of known coordinates: half the rows get a random non-empty proper subset."""
-        d = self.space.ambient_shape[0]
-        rows = torch.rand(n, generator=generator, dtype=torch.float64) < 0.5
-        known = (torch.rand(n, d, generator=generator, dtype=torch.float64) < 0.5) & rows.unsqueeze(-1)
+        d, dev = self.space.ambient_shape[0], generator_device(generator)
+        rows = torch.rand(n, generator=generator, dtype=torch.float64, device=dev) < 0.5
+        known = (torch.rand(n, d, generator=generator, dtype=torch.float64, device=dev) < 0.5) & rows.unsqueeze(-1)
         full = known.all(-1)
-        free = torch.randint(d, (n,), generator=generator)
+        free = torch.randint(d, (n,), generator=generator, device=dev)
         known[full, free[full]] = False
         return known
 
@@ -137,17 +141,37 @@ class Objective(ABC):
             if labels is not None:
                 raise InputError("labels given to a model built without classes", field="labels")
             return None
-        drop = torch.rand(labels.shape, dtype=torch.float64, generator=generator) < self.label_dropout
+        drop = torch.rand(labels.shape, dtype=torch.float64, device=labels.device, generator=generator) \
+            < self.label_dropout
         return torch.where(drop, torch.full_like(labels, self.n_classes), labels)
 
     @abstractmethod
     def default_network(self, **options) -> nn.Module:
         """The objective's default denoiser for its space (``options``: width, depth, …)."""
 
-    @abstractmethod
     def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None,
              labels: torch.Tensor | None = None) -> torch.Tensor:
-        """Scalar batch loss on data points ``x0`` (with class indices ``labels`` for a labelled model)."""
+        """Scalar batch loss on data points ``x0`` (with class indices ``labels`` for a labelled model).
+
+        The same as ``share_loss(net, draw(x0, generator, labels))``: the randomness of the batch, then the loss.
+        """
+        return self.share_loss(net, self.draw(x0, generator, labels))
+
+    @abstractmethod
+    def draw(self, x0, generator: torch.Generator | None = None, labels: torch.Tensor | None = None) -> dict:
+        """Everything random about a training batch ``x0``, drawn from ``generator`` (times, noised points, …).
+
+        A data-parallel run draws this for the *global* batch on every rank (the same draws as one process
+        would make, in the same order), and each rank evaluates its slice with :meth:`share_loss`.
+        """
+
+    @abstractmethod
+    def share_loss(self, net: nn.Module, drawn: dict, share: Share = WHOLE) -> torch.Tensor:
+        """The loss of the rows of ``share`` (:class:`heatwalk.core.parallel.Share`) of a :meth:`draw`.
+
+        Per-row terms are weighted by ``share.mean`` so that the average over ranks is the global batch's loss
+        (and its gradient); for the whole batch (one process) the value is the batch loss.
+        """
 
     @abstractmethod
     def field(self, net: nn.Module, conditioning=None):

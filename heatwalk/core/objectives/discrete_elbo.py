@@ -36,12 +36,15 @@ from torch import nn
 
 from heatwalk.checks import check_int, check_number
 from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gradient
+from heatwalk.core.devices import input_device, make_generator
 from heatwalk.core.fields import X0ProbabilityField
 from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.networks.transformer import TransformerDenoiser
 from heatwalk.core.objectives.base import Objective
+from heatwalk.core.parallel import WHOLE, Share
 from heatwalk.core.schedule import TimeSchedule
 from heatwalk.errors import InputError
+from heatwalk.spaces.base import generator_device
 from heatwalk.spaces.finite import FiniteStateSpace
 
 LN2 = math.log(2.0)
@@ -96,6 +99,7 @@ class DiscreteELBO(Objective):
         super().__init__(space, schedule, classes, label_dropout, inpainting)
         self.ce_weight = check_number("ce_weight", ce_weight, minimum=0)
         self.recon_fraction = check_number("recon_fraction", recon_fraction, minimum=0, open_minimum=True, maximum=1)
+        # cpu: a one-off check of the time range when the objective is built
         states = torch.arange(space.K).reshape(-1, 1).expand(-1, space.L)
         if not bool(torch.isfinite(space.prior_kl(states, schedule.t_max)).all()):
             raise InputError(f"time range: at t_max = {schedule.t_max} the law of x_t is not absolutely continuous "
@@ -199,11 +203,19 @@ class DiscreteELBO(Objective):
 
     def _terms(self, net, x0, t, x_rec, generator, labels=None, labels_rec=None):
         """Integral estimate (span · integrand) at times t, reconstruction at t_min for rows x_rec, CE."""
-        sp, sch = self.space, self.schedule
-        xt = sp.sample_forward(x0, t, generator)
+        xt, xr = self._noised(x0, t, x_rec, generator)
+        return self._evaluate(net, x0, t, xt, x_rec, xr, labels, labels_rec)
+
+    def _noised(self, x0, t, x_rec, generator):
+        """The exact draws x_t ~ q(· | x_0) at times t and x_{t_min} ~ q(· | x_rec)."""
+        sp = self.space
+        return sp.sample_forward(x0, t, generator), sp.sample_forward(x_rec, self.schedule.t_min, generator)
+
+    def _evaluate(self, net, x0, t, xt, x_rec, xr, labels=None, labels_rec=None):
+        """The terms of :meth:`_terms` from drawn states (deterministic: the network and the bound's integrand)."""
+        sch = self.schedule
         m = x_rec.shape[0]
-        xr = sp.sample_forward(x_rec, sch.t_min, generator)
-        tr = torch.full((m,), sch.t_min, dtype=torch.float64)
+        tr = torch.full((m,), sch.t_min, dtype=torch.float64, device=t.device)
         states, times = torch.cat([xt, xr]), torch.cat([t, tr])
         if labels is None:
             log_p_all = self.log_x0_probs(net, states, times)
@@ -217,25 +229,34 @@ class DiscreteELBO(Objective):
 
     def _stratified_times(self, n: int, generator) -> torch.Tensor:
         """n times covering [t_min, t_max) in n strata with one shared random offset (low variance)."""
-        sch = self.schedule
-        u0 = torch.rand((), dtype=torch.float64, generator=generator)
-        u = torch.remainder(u0 + torch.arange(n, dtype=torch.float64) / n, 1.0)
-        u = u[torch.randperm(n, generator=generator)]
+        sch, dev = self.schedule, generator_device(generator)
+        u0 = torch.rand((), dtype=torch.float64, generator=generator, device=dev)
+        u = torch.remainder(u0 + torch.arange(n, dtype=torch.float64, device=dev) / n, 1.0)
+        u = u[torch.randperm(n, generator=generator, device=dev)]
         return sch.t_min + (sch.t_max - sch.t_min) * u
 
-    def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None,
-             labels: torch.Tensor | None = None) -> torch.Tensor:
-        """Batch estimate of the ELBO in nats per token (plus ce_weight × cross-entropy per token)."""
+    def draw(self, x0: torch.Tensor, generator: torch.Generator | None = None,
+             labels: torch.Tensor | None = None) -> dict:
+        """Dropped labels, stratified times, x_t ~ q(· | x_0), and x_{t_min} for the first m rows (reconstruction)."""
         labels = self.drop_labels(labels, generator)
-        n, L = x0.shape
+        n = x0.shape[0]
         t = self._stratified_times(n, generator)
         m = max(1, int(round(self.recon_fraction * n)))
-        integral, recon, ce = self._terms(net, x0, t, x0[:m], generator, labels,
-                                          None if labels is None else labels[:m])
-        prior = self.space.prior_kl(x0, self.schedule.t_max)
-        value = (integral.mean() + prior.mean() + recon.mean()) / L
+        xt, xr = self._noised(x0, t, x0[:m], generator)
+        return {"x0": x0, "labels": labels, "t": t, "xt": xt, "xr": xr}
+
+    def share_loss(self, net: nn.Module, drawn: dict, share: Share = WHOLE) -> torch.Tensor:
+        """Batch estimate of the ELBO in nats per token (plus ce_weight × cross-entropy per token)."""
+        x0, labels = drawn["x0"], drawn["labels"]
+        (n, L), m = x0.shape, drawn["xr"].shape[0]
+        mine = [share.take(drawn[k], n) for k in ("x0", "labels", "t", "xt")]
+        x_rec, xr = share.take(x0[:m], m), share.take(drawn["xr"], m)
+        labels_rec = None if labels is None else share.take(labels[:m], m)
+        integral, recon, ce = self._evaluate(net, mine[0], mine[2], mine[3], x_rec, xr, mine[1], labels_rec)
+        prior = self.space.prior_kl(mine[0], self.schedule.t_max)
+        value = (share.mean(integral, n) + share.mean(prior, n) + share.mean(recon, m)) / L
         if ce is not None:
-            value = value + self.ce_weight * ce.mean() / L
+            value = value + self.ce_weight * share.mean(ce, n) / L
         return value
 
     def elbo(self, net: nn.Module, x: torch.Tensor, generator: torch.Generator | None = None,
@@ -258,8 +279,8 @@ class DiscreteELBO(Objective):
                 b = xb.shape[0]
                 rep = xb.repeat_interleave(M, dim=0)
                 lab = None if labels is None else labels[i:i + rows_per].repeat_interleave(M, dim=0)
-                u = (torch.arange(M, dtype=torch.float64).repeat(b)
-                     + torch.rand(b * M, dtype=torch.float64, generator=generator)) / M
+                u = (torch.arange(M, dtype=torch.float64, device=x.device).repeat(b)
+                     + torch.rand(b * M, dtype=torch.float64, device=x.device, generator=generator)) / M
                 t = sch.t_min + (sch.t_max - sch.t_min) * u
                 integral, recon, _ = self._terms(net, rep, t, rep, generator, lab, lab)
                 per = (integral + recon).reshape(b, M)
@@ -276,7 +297,7 @@ class DiscreteELBO(Objective):
         Returns ``{"log_prob": (n,), "stderr": (n,), "bits_per_token": float, "bound": True}``.
         """
         if generator is None:
-            generator = torch.Generator().manual_seed(seed)
+            generator = make_generator(seed, input_device(x))
         est = self.elbo(net, x, generator, n_time_samples=n_time_samples, batch_size=batch_size, labels=labels)
         return {"log_prob": -est.nats, "stderr": est.stderr, "bits_per_token": est.bits_per_token,
                 "bits_per_token_stderr": est.bits_per_token_stderr, "n_time_samples": est.n_time_samples,

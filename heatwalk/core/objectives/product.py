@@ -40,8 +40,10 @@ from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.objectives.base import Objective
 from heatwalk.core.objectives.discrete_elbo import DiscreteELBO
 from heatwalk.core.objectives.score_matching import ScoreMatching
+from heatwalk.core.parallel import WHOLE, Share
 from heatwalk.core.schedule import ClockSchedule, TimeSchedule
 from heatwalk.errors import InputError
+from heatwalk.spaces.base import generator_device
 
 DIFFUSED, KNOWN, DROPPED = 0, 1, 2
 
@@ -124,11 +126,11 @@ class ProductObjective(Objective):
     # ----- roles and noised states ------------------------------------------------------------------
     def random_roles(self, n: int, generator) -> torch.Tensor:
         """(n, F) int64 roles: half the rows all diffused, the others uniform with at least one diffused."""
-        f = len(self.space.factors)
-        joint = torch.rand(n, generator=generator, dtype=torch.float64) < 0.5
-        roles = torch.randint(3, (n, f), generator=generator)
+        f, dev = len(self.space.factors), generator_device(generator)
+        joint = torch.rand(n, generator=generator, dtype=torch.float64, device=dev) < 0.5
+        roles = torch.randint(3, (n, f), generator=generator, device=dev)
         none = (roles != DIFFUSED).all(-1)
-        pick = torch.randint(f, (n,), generator=generator)
+        pick = torch.randint(f, (n,), generator=generator, device=dev)
         roles[none, pick[none]] = DIFFUSED
         return torch.where(joint.unsqueeze(-1), torch.zeros_like(roles), roles)
 
@@ -144,7 +146,8 @@ class ProductObjective(Objective):
         return tuple(out)
 
     # ----- the loss -----------------------------------------------------------------------------------
-    def loss(self, net: nn.Module, x0, generator: torch.Generator | None = None, labels=None) -> torch.Tensor:
+    def draw(self, x0, generator: torch.Generator | None = None, labels=None) -> dict:
+        """Dropped labels, clock times, factor roles, the noised states, and the reconstruction rows' states."""
         labels = self.drop_labels(labels, generator)
         n = self.space.n_points(x0)
         m = max(1, int(round(self.recon_fraction * n)))
@@ -152,35 +155,50 @@ class ProductObjective(Objective):
         roles = self.random_roles(n, generator)
         xt = self.states(x0, tau, roles, generator)
         x0_rec = self.space.take(x0, slice(0, m))
-        tau_rec = torch.zeros(m, dtype=torch.float64)
+        tau_rec = torch.zeros(m, dtype=torch.float64, device=tau.device)
         x_rec = self.states(x0_rec, tau_rec, roles[:m], generator)
+        return {"x0": x0, "labels": labels, "tau": tau, "roles": roles, "xt": xt, "x0_rec": x0_rec,
+                "tau_rec": tau_rec, "x_rec": x_rec}
+
+    def share_loss(self, net: nn.Module, drawn: dict, share: Share = WHOLE) -> torch.Tensor:
+        """Sum over factors of their loss terms on the rows of ``share`` (module docstring)."""
+        n, m = self.space.n_points(drawn["x0"]), self.space.n_points(drawn["x0_rec"])
+        x0, labels, tau, roles, xt = (share.take(drawn[k], n) for k in ("x0", "labels", "tau", "roles", "xt"))
+        x0_rec, tau_rec, x_rec = (share.take(drawn[k], m) for k in ("x0_rec", "tau_rec", "x_rec"))
+        roles_rec = share.take(drawn["roles"][:m], m)
+        labels_rec = None if drawn["labels"] is None else share.take(drawn["labels"][:m], m)
+        k = tau.shape[0]  # this share's rows of the main part
         both = tuple(torch.cat([a, b]) for a, b in zip(xt, x_rec))
-        tau_all, roles_all = torch.cat([tau, tau_rec]), torch.cat([roles, roles[:m]])
-        lab = None if labels is None else torch.cat([labels, labels[:m]])
+        tau_all, roles_all = torch.cat([tau, tau_rec]), torch.cat([roles, roles_rec])
+        lab = None if labels is None else torch.cat([labels, labels_rec])
         outs = self.split(self.raw_outputs(net, both, tau_all, lab, roles_all), both, tau_all)
-        total = torch.zeros((), dtype=torch.float64)
+        total = torch.zeros((), dtype=torch.float64, device=tau.device)
         for i, (part, o, ti) in enumerate(zip(self.parts, outs, self.space.factor_times(tau))):
             live = (roles[:, i] == DIFFUSED).double()
             if self.space.is_manifold[i]:
-                total = total + self._score_term(part, xt[i], x0[i], ti, o[:n], live)
+                total = total + share.mean(self._score_term(part, xt[i], x0[i], ti, o[:k], live), n)
             else:
-                total = total + self._elbo_term(part, xt[i], x0[i], ti, o[:n], o[n:], x0_rec[i], live, live[:m])
+                live_rec = (roles_rec[:, i] == DIFFUSED).double()
+                main, rec = self._elbo_term(part, xt[i], x0[i], ti, o[:k], o[k:], x0_rec[i], live, live_rec)
+                total = total + (share.mean(main, n) + share.mean(rec, m)) / part.space.L
         return total
 
     @staticmethod
     def _score_term(part, xt, x0, t, score, live):
+        """Per row: the factor's σ²-weighted squared score error where it is diffused (0 elsewhere)."""
         sqrt_t = part._time_column(t)
         diff = sqrt_t * score - sqrt_t * part.space.score(xt, x0, t)
         per_row = part.space.inner(xt, diff, diff) / part.space.dim
-        return (live * per_row).mean()
+        return live * per_row
 
     @staticmethod
     def _elbo_term(part, xt, x0, t, log_p, log_rec, x_rec, live, live_rec):
+        """Per row: the factor's integral and prior terms, and per reconstruction row its reconstruction term."""
         sp, sch = part.space, part.schedule
         integral = (sch.t_max - sch.t_min) * part._integrand(xt, x0, t, log_p)
         recon = -torch.gather(log_rec, 2, x_rec.unsqueeze(-1)).squeeze(-1).sum(-1)
         prior = sp.prior_kl(x0, sch.t_max)
-        return ((live * (integral + prior)).mean() + (live_rec * recon).mean()) / sp.L
+        return live * (integral + prior), live_rec * recon
 
     # ----- fields and likelihoods ------------------------------------------------------------------
     def field(self, net: nn.Module, conditioning: Conditioning | None = None) -> ProductField:
@@ -191,8 +209,8 @@ class ProductObjective(Objective):
         given = c.given or {}
         sp = self.space
 
-        def roles_for(n):
-            roles = torch.zeros(n, len(sp.factors), dtype=torch.int64)
+        def roles_for(n, device):
+            roles = torch.zeros(n, len(sp.factors), dtype=torch.int64, device=device)
             for i in given:
                 roles[:, i] = KNOWN
             return roles
@@ -204,11 +222,11 @@ class ProductObjective(Objective):
             return self.split(combine_guidance(uncond, cond, c.guidance), x, tau)
 
         def outputs(x, tau):
-            n = sp.n_points(x)
-            tau = torch.as_tensor(tau, dtype=torch.float64).expand(n)
+            n, dev = sp.n_points(x), x[0].device
+            tau = torch.as_tensor(tau, dtype=torch.float64, device=dev).expand(n)
             if c.guide is None:
-                return compute(x, tau, roles_for(n))
-            return self._guided(compute, x, tau, roles_for(n), c)
+                return compute(x, tau, roles_for(n, dev))
+            return self._guided(compute, x, tau, roles_for(n, dev), c)
 
         def constrain(x, tau, generator, final):
             return tuple(given[i] if i in given else xi for i, xi in enumerate(x))

@@ -71,6 +71,7 @@ class ManifoldFactors(Manifold):
         return self.join([getattr(f, name)(*a) for f, *a in zip(self.factors, *[self.split(z) for z in args])])
 
     def validate(self, x):
+        # cpu: a tensor keeps its device; other input is read on the CPU
         return self.join([f.validate(p) for f, p in zip(self.factors, self.split(torch.as_tensor(x, dtype=DTYPE)))])
 
     def project(self, x):
@@ -90,7 +91,7 @@ class ManifoldFactors(Manifold):
 
     def tangent_basis(self, x):
         n = x.shape[0]
-        basis = torch.zeros(n, self.dim, self.ambient_shape[0], dtype=x.dtype)
+        basis = torch.zeros(n, self.dim, self.ambient_shape[0], dtype=x.dtype, device=x.device)
         r = c = 0
         for f, p, k in zip(self.factors, self.split(x), self.sizes):
             basis[:, r:r + f.dim, c:c + k] = f.tangent_basis(p).reshape(n, f.dim, k)
@@ -134,7 +135,7 @@ class ManifoldFactors(Manifold):
         return [(times[i], rates[i] / T) for i in self.index], tau
 
     def drift(self, x, T):
-        T = torch.as_tensor(T, dtype=DTYPE).expand(x.shape[0])
+        T = torch.as_tensor(T, dtype=DTYPE, device=x.device).expand(x.shape[0])
         tr, _ = self._rates(T)
         return self.join([rate.reshape(-1, *([1] * len(f.ambient_shape))) * f.drift(p, t)
                           for f, p, (t, rate) in zip(self.factors, self.split(x), tr)])
@@ -158,7 +159,8 @@ def _manifold_log_prob(objective, net, x, labels, finite_state, options) -> tupl
     sp = objective.space
     view = ManifoldFactors(sp)
     n = sp.n_points(x)
-    roles = torch.tensor([DIFFUSED if m else DROPPED for m in sp.is_manifold], dtype=torch.int64).expand(n, -1)
+    roles = torch.tensor([DIFFUSED if m else DROPPED for m in sp.is_manifold], dtype=torch.int64,
+                         device=x[0].device).expand(n, -1)
 
     def score_fn(flat, T):
         rates, tau = view._rates(T)
@@ -185,12 +187,14 @@ def _finite_elbo(objective, net, x, labels, n_time_samples: int, generator) -> t
     """Upper bound on -log p(x_D | x_C) (manifold factors known): (per point nats, standard errors)."""
     sp, M = objective.space, n_time_samples
     n = sp.n_points(x)
-    roles = torch.tensor([KNOWN if m else DIFFUSED for m in sp.is_manifold], dtype=torch.int64)
+    dev = x[0].device
+    roles = torch.tensor([KNOWN if m else DIFFUSED for m in sp.is_manifold], dtype=torch.int64, device=dev)
     rep = tuple(xi.repeat_interleave(M, dim=0) for xi in x)
     lab = None if labels is None else labels.repeat_interleave(M, dim=0)
-    u = (torch.arange(M, dtype=DTYPE).repeat(n) + torch.rand(n * M, dtype=DTYPE, generator=generator)) / M
-    per = torch.zeros(n * M, dtype=DTYPE)
-    for tau, with_integral in ((u, True), (torch.zeros(n * M, dtype=DTYPE), False)):
+    u = (torch.arange(M, dtype=DTYPE, device=dev).repeat(n)
+         + torch.rand(n * M, dtype=DTYPE, device=dev, generator=generator)) / M
+    per = torch.zeros(n * M, dtype=DTYPE, device=dev)
+    for tau, with_integral in ((u, True), (torch.zeros(n * M, dtype=DTYPE, device=dev), False)):
         states = objective.states(rep, tau, roles.expand(n * M, -1), generator)
         outs = objective.split(objective.raw_outputs(net, states, tau, lab, roles.expand(n * M, -1)), states, tau)
         for i, (part, t) in enumerate(zip(objective.parts, sp.factor_times(tau))):
@@ -213,11 +217,12 @@ def product_log_prob(objective, net, x, labels=None, n_time_samples: int = 32, s
     sp = objective.space
     x = sp.validate(x)
     check_int("n_time_samples", n_time_samples, minimum=2)
-    generator = generator or torch.Generator().manual_seed(seed)
+    dev = x[0].device
+    generator = generator or torch.Generator(device=dev).manual_seed(seed)
     n = sp.n_points(x)
     has_c, has_d = any(sp.is_manifold), not all(sp.is_manifold)
-    ode, ode_se = torch.zeros(n, dtype=DTYPE), torch.zeros(n, dtype=DTYPE)
-    elbo, elbo_se = torch.zeros(n, dtype=DTYPE), torch.zeros(n, dtype=DTYPE)
+    ode, ode_se = torch.zeros(n, dtype=DTYPE, device=dev), torch.zeros(n, dtype=DTYPE, device=dev)
+    elbo, elbo_se = torch.zeros(n, dtype=DTYPE, device=dev), torch.zeros(n, dtype=DTYPE, device=dev)
     with torch.no_grad():
         for a in range(0, n, batch_size):
             xb = sp.take(x, slice(a, a + batch_size))

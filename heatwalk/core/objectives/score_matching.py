@@ -11,6 +11,7 @@ from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gra
 from heatwalk.core.fields import ScoreField
 from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.objectives.base import Objective
+from heatwalk.core.parallel import WHOLE, Share
 from heatwalk.errors import InputError
 from heatwalk.samplers.flow_ode import log_likelihood
 
@@ -53,8 +54,9 @@ class ScoreMatching(Objective):
     def _time_column(self, t: torch.Tensor) -> torch.Tensor:
         return t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))
 
-    def loss(self, net: nn.Module, x0: torch.Tensor, generator: torch.Generator | None = None,
-             labels: torch.Tensor | None = None) -> torch.Tensor:
+    def draw(self, x0: torch.Tensor, generator: torch.Generator | None = None,
+             labels: torch.Tensor | None = None) -> dict:
+        """Dropped labels, times t, exact draws x_t ~ p_t(· | x_0) and (inpainting) known-coordinate masks."""
         labels = self.drop_labels(labels, generator)
         t = self.schedule.sample(x0.shape[0], generator)
         xt = self.space.sample_forward(x0, t, generator)
@@ -62,11 +64,17 @@ class ScoreMatching(Objective):
         if self.inpainting:
             known = self.random_known(x0.shape[0], generator)
             xt = torch.where(known, x0, xt)
+        return {"x0": x0, "labels": labels, "t": t, "xt": xt, "known": known}
+
+    def share_loss(self, net: nn.Module, drawn: dict, share: Share = WHOLE) -> torch.Tensor:
+        """σ²-weighted squared score error per row (class docstring), averaged by ``share.mean``."""
+        n = drawn["x0"].shape[0]
+        x0, labels, t, xt, known = (share.take(drawn[k], n) for k in ("x0", "labels", "t", "xt", "known"))
         target = self._time_column(t) * self.space.score(xt, x0, t)
         diff = self.scaled_score(net, xt, t, labels, known) - target
         if known is not None:
             diff = torch.where(known, 0.0, diff)
-        return self.space.inner(xt, diff, diff).mean() / self.space.dim
+        return share.mean(self.space.inner(xt, diff, diff), n) / self.space.dim
 
     def log_prob(self, net: nn.Module, x, labels: torch.Tensor | None = None, **options) -> dict:
         """Exact log-likelihood (nats, reference measure of the space) by the probability-flow ODE.
