@@ -113,11 +113,13 @@ class TableFiles:
     def _read_mapped(path, space_cls, file_opts, build_opts, columns, labels, delimiter):
         """(space, memory-mapped points, facts) of a large array file (see :func:`mapped_array_file`)."""
         given = {"columns": columns, "labels": labels, "delimiter": delimiter, **file_opts}
-        refused = [name for name, value in given.items() if value not in (None, False)]
+        refused = [(name, value) for name, value in given.items() if value not in (None, False)]
         if refused:
+            name, value = refused[0]
+            value = ",".join(map(str, value)) if isinstance(value, (list, tuple)) else value
             raise InputError(f"{path}: a numpy array file of {arrays.MEMMAP_MIN_BYTES} bytes or more is read "
                              f"memory-mapped, its rows as the points are stored (the default reading options); "
-                             f"{refused[0]} cannot be applied to it: convert the file first", field=refused[0])
+                             f"{name}={value!r} cannot be applied to it: convert the file first", field=name)
         rows = arrays.open_array(path)
         if rows.ndim == 1:  # one column
             rows = rows.reshape(-1, 1)
