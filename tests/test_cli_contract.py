@@ -1,7 +1,6 @@
 """The command line's contract beyond bad data files: exit statuses, --debug, signals, ranges, output paths,
 messages in flags, devices, threads, the main process and memory-mapped data."""
 
-import os
 import signal
 import subprocess
 import sys
@@ -374,7 +373,8 @@ def test_large_array_files_are_memory_mapped_and_train_the_same_model(tmp_path, 
     (tmp_path / "same.csv").write_text("".join(f"{a!r},{b!r}\n" for a, b in x.tolist()))
     given = []
     real_fit = heatwalk.fit
-    monkeypatch.setattr(heatwalk, "fit", lambda space, data, **k: given.append(type(data)) or real_fit(space, data, **k))
+    monkeypatch.setattr(heatwalk, "fit",
+                        lambda space, data, **k: given.append(type(data)) or real_fit(space, data, **k))
     monkeypatch.setattr(arrays, "MEMMAP_MIN_BYTES", 1)  # every array file counts as large
     for name in ("big.npy", "same.csv"):
         code, _, err = run(["fit", str(tmp_path / name), "--space", "torus", "--out", str(tmp_path / (name + ".m")),

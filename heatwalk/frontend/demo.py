@@ -8,8 +8,6 @@ and only when it is a demo folder, a model or report folder, or empty.
 
 from __future__ import annotations
 
-from pathlib import Path
-
 
 def cmd_demo(args) -> int:
     import numpy as np

@@ -24,7 +24,6 @@ name (``'train_steps'``: a config-file key is named as it is written in the file
 from __future__ import annotations
 
 import re
-from functools import lru_cache
 
 #: Python keywords of the library whose command-line flag has another name
 API_KEYWORDS = {"lr": "--learning-rate", "checkpoint_dir": "--checkpoints"}
@@ -36,7 +35,6 @@ _NOT_BEFORE = r"(?<![\w./\-'\"])"
 _NOT_AFTER = r"(?![\w/\-]|\.\w)"
 
 
-@lru_cache(maxsize=1)
 def flag_names() -> dict[str, str]:
     """{Python name: flag} over every command's declared flags, the spaces' options and :data:`API_KEYWORDS`."""
     from heatwalk.frontend import flags

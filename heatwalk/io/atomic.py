@@ -104,7 +104,8 @@ def check_replaceable(path, kind: str) -> None:
 
     A file may replace a regular file only. A folder may replace a folder only, and only one that
     heatwalk wrote: a model folder (``model.json`` and ``weights.safetensors`` or ``weights.pt``), a
-    report folder (``evaluation.json``), a demo folder (``demo_report.json``) or an empty folder. Symbolic links to folders are refused.
+    report folder (``evaluation.json``), a demo folder (``demo_report.json``) or an empty folder.
+    Symbolic links to folders are refused.
     A ``path`` that does not exist passes.
     """
     path = Path(path)
