@@ -147,6 +147,7 @@ def test_sigterm_stops_a_fit_with_one_line_and_status_143(tmp_path, angles_csv):
     (["--learning-rate", "inf"], r"--learning-rate must be a positive finite number, got inf"),
     (["--learning-rate", "0"], r"--learning-rate must be a positive finite number, got 0"),
     (["--threads", "0"], r"--threads must be an integer in \[1, 4096\], got 0"),
+    (["--label-dropout", "1"], r"--label-dropout must be a finite number in \[0, 1\), got 1.0"),
 ])
 def test_fit_refuses_numbers_out_of_range(tmp_path, capsys, angles_csv, flags, message):
     import re
@@ -201,6 +202,13 @@ def test_errors_name_flags_not_python_keywords(tmp_path, capsys, space, flags, c
     code, _, err = run(["fit", str(p), "--space", space, "--out", str(tmp_path / "m"), *flags, *TINY], capsys)
     assert code == 2 and one_error_line(err)
     assert wanted in err and unwanted not in err, err
+
+
+def test_a_diverging_fit_names_the_learning_rate_flag(tmp_path, capsys, angles_csv):
+    code, _, err = run(["fit", str(angles_csv), "--space", "torus", "--out", str(tmp_path / "m"), "--learning-rate",
+                        "1e30", "--train-steps", "30", "--batch-size", "8", "--hidden", "8", "--quiet"], capsys)
+    assert code == 2 and one_error_line(err) and "(--learning-rate 1e+30)" in err and "lr =" not in err, err
+    assert not (tmp_path / "m").exists()
 
 
 def test_message_rewriting_leaves_words_paths_and_config_keys_alone():

@@ -9,7 +9,7 @@ default ``None`` so that "given on the command line" is visible; the declared
 defaults are applied after the config file.
 
 Numbers have their admissible range declared here too (``minimum``,
-``maximum``, ``open_minimum``; floats are always required finite), and
+``maximum``, ``open_minimum``, ``open_maximum``; floats are always required finite), and
 :func:`apply_defaults` checks every value against it, so a value out of range
 is refused before any work with a message naming the flag, e.g.
 ``--batch-size must be an integer in [1, 10000000], got 1000000000000``. The
@@ -39,6 +39,7 @@ class Flag:
     minimum: float | None = None
     maximum: float | None = None
     open_minimum: bool = False
+    open_maximum: bool = False
 
     @property
     def flag(self) -> str:
@@ -106,7 +107,7 @@ def fit_flags() -> list[Flag]:
         Flag("labels", str, "column holding a class name per row: fit a labelled model (for --label at sampling)",
              metavar="COLUMN"),
         Flag("label_dropout", float, "with --labels: fraction of rows trained without their label", default=0.1,
-             metavar="P", minimum=0, maximum=1),
+             metavar="P", minimum=0, maximum=1, open_maximum=True),
         Flag("inpainting", bool, "also train to condition on known coordinates (torus, R^d): exact --fix/--given"),
         Flag("checkpoints", str, "folder for periodic training checkpoints", metavar="FOLDER"),
         Flag("checkpoint_every", int, "steps between checkpoints", default=1000, metavar="N", minimum=1,
@@ -209,7 +210,7 @@ def check_range(declared, value):
     """``value`` of the flag or space option ``declared`` checked against its declared range; returns it.
 
     ``declared`` is a :class:`Flag` or a :class:`heatwalk.spaces.Option` (both have ``kind``, ``flag``,
-    ``minimum``, ``maximum``, ``open_minimum``). Floats must be finite; None (not given) passes. The error
+    ``minimum``, ``maximum``, ``open_minimum``, ``open_maximum``). Floats must be finite; None (not given) passes. The error
     names the flag.
     """
     from heatwalk.checks import check_int, check_number
@@ -219,4 +220,5 @@ def check_range(declared, value):
     lo, hi = declared.minimum, declared.maximum
     if declared.kind is int:
         return check_int(declared.flag, value, minimum=lo, maximum=hi)
-    return check_number(declared.flag, value, minimum=lo, maximum=hi, open_minimum=declared.open_minimum)
+    return check_number(declared.flag, value, minimum=lo, maximum=hi, open_minimum=declared.open_minimum,
+                        open_maximum=declared.open_maximum)

@@ -8,8 +8,9 @@ flags of every command, the options the spaces declare, and the Python
 keywords of ``fit`` whose flag has another name, such as ``lr`` for
 ``--learning-rate``):
 
-- ``NAME=VALUE`` (advice such as ``degrees=True`` or ``rotation_format='rotvec'``)
-  becomes ``--flag`` for ``True`` and ``--flag VALUE`` otherwise;
+- ``NAME=VALUE`` or ``NAME = VALUE`` (advice such as ``degrees=True`` or
+  ``rotation_format='rotvec'``, a value quoted such as ``lr = 1e+30``) becomes ``--flag`` for
+  ``True`` and ``--flag VALUE`` otherwise;
 - a name with an underscore (``rotation_format``, ``batch_size``) standing as a
   word becomes its flag;
 - any name as the subject of a check (``NAME must be``, ``NAME applies``,
@@ -59,7 +60,7 @@ def for_command_line(message: str) -> str:
     """``message`` with the library's option names replaced by command-line flags (module docstring)."""
     names = flag_names()
     alternatives = "|".join(sorted(map(re.escape, names), key=len, reverse=True))
-    message = re.sub(rf"{_NOT_BEFORE}({alternatives})={_VALUE}",
+    message = re.sub(rf"{_NOT_BEFORE}({alternatives}) ?= ?{_VALUE}",
                      lambda m: _as_flag(names[m.group(1)], m.group(2)), message)
     underscored = "|".join(sorted((re.escape(n) for n in names if "_" in n), key=len, reverse=True))
     message = re.sub(rf"{_NOT_BEFORE}({underscored}){_NOT_AFTER}", lambda m: names[m.group(1)], message)

@@ -30,8 +30,8 @@ def add_space_option_flags(parser) -> None:
     group = parser.add_argument_group("reading and writing data (options of the space)")
     for name, decls in _declared_options().items():
         first = decls[0][1]
-        if any((o.kind, o.choices, o.minimum, o.maximum, o.open_minimum)
-               != (first.kind, first.choices, first.minimum, first.maximum, first.open_minimum) for _, o in decls):
+        ranges = [(o.kind, o.choices, o.minimum, o.maximum, o.open_minimum, o.open_maximum) for _, o in decls]
+        if any(r != ranges[0] for r in ranges):
             raise TypeError(f"spaces declare option {name!r} with different types, choices or ranges")
         help_text = "; ".join(f"{kind}: {o.help}" + (f" (default {o.default})" if o.default is not None else "")
                               for kind, o in decls)
