@@ -1,7 +1,7 @@
 """The command line's options, declared once: argparse flags, their help (with defaults) and config-file keys.
 
 Each command is a list of :class:`Flag`. :func:`add_flags` turns them into
-argparse arguments whose help shows the default and the choices; for ``fit``
+argparse arguments whose help shows the default, the choices and the range; for ``fit``
 the same names (with ``_``) are the keys of the TOML config file
 (:mod:`heatwalk.frontend.config_file`), so every option can live in the file
 and a flag given on the command line overrides it. Flags are parsed with
@@ -185,6 +185,7 @@ def add_flags(parser, flags: list[Flag]) -> None:
     """argparse arguments for ``flags`` (default None; help states the declared default and choices)."""
     for f in flags:
         text = f.help + (f" (default: {f.default})" if f.default is not None and f.kind is not bool else "")
+        text += range_text(f)
         if f.positional:
             parser.add_argument(f.name, help=text, nargs=f.nargs, metavar=f.name.upper())
         elif f.kind is bool:
@@ -194,6 +195,17 @@ def add_flags(parser, flags: list[Flag]) -> None:
         else:
             parser.add_argument(f.flag, dest=f.name, type=f.kind, choices=f.choices, default=None,
                                 metavar=f.metavar if f.choices is None else None, help=text)
+
+
+def range_text(declared) -> str:
+    """The declared range of a number flag or option as help text, e.g. "; range [1, 10000000]" ("" when none)."""
+    lo, hi = declared.minimum, declared.maximum
+    if declared.kind not in (int, float) or (lo is None and hi is None):
+        return ""
+    left = "(" if declared.open_minimum or lo is None else "["
+    right = ")" if declared.open_maximum or hi is None else "]"
+    return f"; range {left}{'-inf' if lo is None else f'{lo:g}' if declared.kind is float else lo}, " \
+           f"{'inf' if hi is None else f'{hi:g}' if declared.kind is float else hi}{right}"
 
 
 def apply_defaults(args, flags: list[Flag]) -> None:

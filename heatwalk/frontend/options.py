@@ -27,6 +27,8 @@ def _declared_options():
 
 def add_space_option_flags(parser) -> None:
     """One flag per declared option; ``None`` (or False) when not given, so a user's choice is visible."""
+    from heatwalk.frontend.flags import range_text
+
     group = parser.add_argument_group("reading and writing data (options of the space)")
     for name, decls in _declared_options().items():
         first = decls[0][1]
@@ -34,7 +36,7 @@ def add_space_option_flags(parser) -> None:
         if any(r != ranges[0] for r in ranges):
             raise TypeError(f"spaces declare option {name!r} with different types, choices or ranges")
         help_text = "; ".join(f"{kind}: {o.help}" + (f" (default {o.default})" if o.default is not None else "")
-                              for kind, o in decls)
+                              for kind, o in decls) + range_text(first)
         if first.kind is bool:
             group.add_argument(first.flag, dest=name, action="store_true", default=None, help=help_text)
         else:
