@@ -82,6 +82,8 @@ class Option:
 
     ``name`` is the Python keyword; the command-line flag is ``--`` + name with
     ``-`` for ``_``. ``kind`` is ``bool`` (a switch), ``int``, ``float`` or ``str``.
+    ``minimum`` / ``maximum`` state the admissible range of a number (``open_minimum`` /
+    ``open_maximum``: that end itself excluded); the command line checks a given value against them.
     """
 
     name: str
@@ -90,6 +92,10 @@ class Option:
     default: Any = None
     choices: tuple | None = None
     metavar: str | None = None
+    minimum: float | None = None
+    maximum: float | None = None
+    open_minimum: bool = False
+    open_maximum: bool = False
 
     @property
     def flag(self) -> str:

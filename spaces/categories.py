@@ -82,7 +82,7 @@ class Categories(FiniteStateSpace):
     file_options = (
         Option("sequence_format", str, "FASTA or one sequence per line", default="auto", choices=SEQUENCE_FORMATS),
         Option("alphabet", str, "the states as a string of symbols (default: those that occur, sorted)"),
-        Option("length", int, "required sequence length (default: the first record's)"),
+        Option("length", int, "required sequence length (default: the first record's)", minimum=1),
         Option("uppercase", bool, "fold symbols to upper case"),
         Option("unknown_symbols", str, "symbols outside --alphabet: reject (naming record and column), drop (the "
                "record) or replace:X (by the symbol X)", default="reject", metavar="POLICY"),

@@ -157,7 +157,7 @@ class Simplex(Manifold):
     plot_kind = "compositions"
     file_options = (
         Option("zero_replacement", float, "replace parts that are exactly 0 by DELTA (multiplicative replacement)",
-               metavar="DELTA"),
+               metavar="DELTA", minimum=0, open_minimum=True),
         Option("closure", bool, "close each row: divide it by its total (amounts, percentages, rounded shares)"),
     )
 
@@ -265,15 +265,15 @@ class Simplex(Manifold):
         i = first_bad_row((s - 1).abs() > SUM_TOLERANCE)
         if i is not None:
             raise InputError(f"row {i}: parts sum to {float(s[i]):.9g}, not 1 (tolerance {SUM_TOLERANCE:g}); "
-                             f"rows of amounts, percentages or rounded shares can be read with the closure "
-                             f"option of Simplex.from_rows", row=i)
+                             f"rows of amounts, percentages or rounded shares can be read with the reading "
+                             f"option closure=True", row=i)
 
     @staticmethod
     def _raise_zero(x: torch.Tensor, i: int) -> None:
         j = int((x[i] == 0).nonzero()[0, 0])
         raise InputError(f"row {i}, column {j}: part is exactly 0; compositions with zero parts lie outside the "
-                         f"open simplex (log-ratios are infinite). Read the rows with the zero_replacement option "
-                         f"of Simplex.from_rows (multiplicative replacement by a small δ, opt-in) or remove the row",
+                         f"open simplex (log-ratios are infinite). Read the rows with the reading option "
+                         f"zero_replacement=δ (multiplicative replacement by a small δ, opt-in) or remove the row",
                          row=i, field=str(j))
 
     def validate(self, x) -> torch.Tensor:

@@ -59,7 +59,7 @@ class Torus(Manifold):
             j = int((x[i].abs() > limit * (1 + 1e-12)).nonzero()[0, 0])
             raise InputError(
                 f"row {i}, column {j}: angle {float(x[i, j]):g} is outside [-{limit:g}, {limit:g}] {unit}"
-                + ("" if degrees else " (were the angles given in degrees? pass the degrees flag)"),
+                + ("" if degrees else " (were the angles given in degrees? read them with the reading option degrees=True)"),
                 row=i, field=str(j),
             )
         if degrees:

@@ -107,7 +107,7 @@ def test_demo_runs_as_a_command(tmp_path):
                         "--train-steps", "150", "--reverse-steps", "40", "--quiet"], capture_output=True, text=True,
                        timeout=600)
     assert r.returncode == 0, r.stderr
-    for name in ("samples.csv", "torsions.png", "report.json", "lanternfold_torsions.csv"):
+    for name in ("samples.csv", "torsions.png", "demo_report.json", "lanternfold_torsions.csv"):
         assert (tmp_path / "demo" / name).is_file()
     assert "MMD^2" in r.stdout
 

@@ -182,3 +182,19 @@ def test_a_million_row_mapped_file_trains_without_being_loaded(tmp_path):
               for mode in ("mapped", "loaded")}
     assert growth["loaded"] > size, growth  # the measurement sees a whole load
     assert growth["mapped"] < size, growth
+
+
+def test_a_product_is_told_by_its_type_not_by_an_attribute_named_factors():
+    # data_source asks isinstance(space, Product): a space that merely has a `factors` attribute is one space
+    from heatwalk.core.data_source import BatchStream, RowReader
+
+    class Labelled(Torus):
+        factors = ("not", "a", "product")
+
+    rows = torch.utils.data.TensorDataset(torch.as_tensor(_angles(10)))
+    reader = RowReader(Labelled(2), rows, torch.device("cpu"))
+    assert not reader.product and reader.batch(torch.tensor([3, 1])).shape == (2, 2)
+    stream = BatchStream(Labelled(2), [torch.as_tensor(_angles(4))], torch.device("cpu"))
+    assert not stream.product and stream.next().shape == (4, 2)
+    product = Product(Torus(1), Categories(3, 2))
+    assert RowReader(product, (np.zeros((5, 1)), np.zeros((5, 2), dtype=np.int64)), torch.device("cpu")).product

@@ -284,7 +284,7 @@ def test_validate_errors_name_row_and_column():
     with pytest.raises(InputError, match=r"row 2, column 0: part is exactly 0.*zero_replacement") as e:
         s.validate([[0.2, 0.3, 0.5], [0.2, 0.3, 0.5], [0.0, 0.5, 0.5]])
     assert e.value.row == 2 and e.value.field == "0"
-    with pytest.raises(InputError, match=r"row 0: parts sum to 1.1, not 1 \(tolerance 1e-06\).*closure option"):
+    with pytest.raises(InputError, match=r"row 0: parts sum to 1.1, not 1 \(tolerance 1e-06\).*closure=True"):
         s.validate([[0.2, 0.4, 0.5]])
     with pytest.raises(InputError, match=r"expected shape \(n, 3\)"):
         s.validate([[0.5, 0.5]])

@@ -34,6 +34,7 @@ import numpy as np
 import torch
 
 from heatwalk.errors import InputError
+from heatwalk.spaces.product import Product
 
 #: rows validated at a time when a row source is checked before training
 VALIDATION_CHUNK = 1 << 16
@@ -101,7 +102,7 @@ class RowReader:
     def __init__(self, space, data, device):
         self.space, self.data, self.device = space, data, device
         self.dataset = _is_map_dataset(data)
-        self.product = hasattr(space, "factors")
+        self.product = isinstance(space, Product)
         if self.dataset:
             self.n = len(data)
         else:
@@ -165,7 +166,7 @@ class BatchStream:
 
     def __init__(self, space, data, device):
         self.space, self.data, self.device = space, data, device
-        self.product = hasattr(space, "factors")
+        self.product = isinstance(space, Product)
         self._it = iter(data)
         self._one_shot = self._it is data
         self.count = 0

@@ -17,9 +17,31 @@ def _space_class(name: str):
     return SPACE_KINDS[name]
 
 
-def _refuse_existing(out: Path, overwrite: bool) -> None:
-    if out.exists() and not overwrite:
-        raise InputError(f"{out} already exists (pass --overwrite to replace it)", field="out")
+def settle(args, flags):
+    """Defaults and ranges of ``flags`` applied (:func:`~heatwalk.frontend.flags.apply_defaults`), then the threads
+    set and the device resolved (before any work, so a device this machine lacks is refused at once);
+    returns the torch device (None for a command without ``--device``)."""
+    from heatwalk.core.devices import resolve_device, set_threads
+    from heatwalk.frontend.flags import apply_defaults
+
+    apply_defaults(args, flags)
+    set_threads(getattr(args, "threads", None))
+    return resolve_device(args.device) if getattr(args, "device", None) is not None else None
+
+
+def _check_checkpoint_folder(folder) -> None:
+    if folder is not None and Path(folder).exists() and not Path(folder).is_dir():
+        raise InputError(f"--checkpoints {folder} is a file; give a folder (it is made when missing)",
+                         field="checkpoints")
+
+
+def _on_cpu(x):
+    """Points (a tensor, or a tuple of them for a product) on the CPU, for writing and metrics."""
+    import torch
+
+    from heatwalk.core.devices import to_device
+
+    return to_device(x, torch.device("cpu"))
 
 
 def _require(args, *names) -> None:
@@ -56,7 +78,9 @@ def _resolve_fit(args):
 
 def cmd_fit(args) -> int:
     import heatwalk
+    from heatwalk.core.parallel import is_main_process
     from heatwalk.frontend.config_file import resolved_toml
+    from heatwalk.io.output_paths import check_output_path
     from heatwalk.io.points import files_for, split_options
 
     flags, kinds = _resolve_fit(args)
@@ -66,8 +90,11 @@ def cmd_fit(args) -> int:
     if args.dry_run:
         print(config_text, end="")
         return 0
-    out = Path(args.out)
-    _refuse_existing(out, args.overwrite)
+    device = settle(args, flags)
+    out = check_output_path(args.out, kind="folder", overwrite=args.overwrite,
+                            inputs={"data": args.data, "checkpoint folder": args.checkpoints,
+                                    "config file": args.config})
+    _check_checkpoint_folder(args.checkpoints)
     columns = [c.strip() for c in args.columns.split(",")] if args.columns else None
     space, x, facts = files_for(space_cls).read_new(args.data, space_cls, options, columns=columns,
                                                     labels=args.labels or None, delimiter=args.delimiter)
@@ -76,8 +103,10 @@ def cmd_fit(args) -> int:
     model = heatwalk.fit(space, x, steps=args.train_steps, batch_size=args.batch_size, lr=args.learning_rate,
                          seed=args.seed, network=network, progress=not args.quiet,
                          checkpoint_dir=args.checkpoints, checkpoint_every=args.checkpoint_every,
-                         resume=args.resume, inpainting=args.inpainting, threads=args.threads,
-                         labels=labels, label_dropout=args.label_dropout)
+                         resume=args.resume, inpainting=args.inpainting, labels=labels,
+                         label_dropout=args.label_dropout, device=device)
+    if not is_main_process():  # torchrun: every process trained the same model; the first one writes it
+        return 0
     model.record["data_file"] = str(Path(args.data).resolve())
     model.record["reading_options"] = split_options(space_cls, options)[0]
     model.record.update({k: facts[k] for k in ("columns", "ignored", "label_column") if facts.get(k)})
@@ -184,13 +213,14 @@ def _parse_given_file(model, path, options) -> dict:
 
 def cmd_sample(args) -> int:
     import heatwalk
-    from heatwalk.frontend.flags import apply_defaults, sample_flags
+    from heatwalk.frontend.flags import sample_flags
+    from heatwalk.io.output_paths import check_output_path
     from heatwalk.io.points import files_for
 
-    apply_defaults(args, sample_flags())
+    device = settle(args, sample_flags())
     _require(args, "n", "out")
-    out = Path(args.out)
-    _refuse_existing(out, args.overwrite)
+    out = check_output_path(args.out, kind="file", overwrite=args.overwrite,
+                            inputs={"model": args.model, "--given table": args.given})
     model = heatwalk.load(args.model)
     files_for(model.space).check_output(out)
     options = _file_options(args, model)
@@ -202,8 +232,8 @@ def cmd_sample(args) -> int:
     t0 = time.perf_counter()
     x = model.sample(args.n, steps=args.reverse_steps, sampler=args.sampler, seed=args.seed,
                      progress=not args.quiet, label=args.label, guidance=args.guidance, given=given or None,
-                     given_method=args.given_method)
-    files_for(model.space).write(out, model.space, x, options, overwrite=args.overwrite,
+                     given_method=args.given_method, device=device)
+    files_for(model.space).write(out, model.space, _on_cpu(x), options, overwrite=args.overwrite,
                                  names=_output_names(model, options))
     print(f"wrote {args.n} samples to {out} in {time.perf_counter() - t0:.1f} s")
     return 0
@@ -212,34 +242,48 @@ def cmd_sample(args) -> int:
 # ----- evaluate, torsions ------------------------------------------------------------------------------
 def cmd_evaluate(args) -> int:
     import heatwalk
-    from heatwalk.frontend.evaluation import evaluate, format_table, write_report
-    from heatwalk.frontend.flags import apply_defaults, evaluate_flags
+    from heatwalk.frontend.evaluation import evaluate, format_table, write_per_point, write_report
+    from heatwalk.frontend.flags import evaluate_flags
     from heatwalk.frontend.plots import plot_data_and_samples
+    from heatwalk.io.atomic import atomic_dir
+    from heatwalk.io.output_paths import check_output_path
     from heatwalk.io.points import files_for
 
-    apply_defaults(args, evaluate_flags())
+    device = settle(args, evaluate_flags())
     _require(args, "out")
-    _refuse_existing(Path(args.out), args.overwrite)
+    inputs = {"model": args.model, "data": args.data}
+    out = check_output_path(args.out, kind="folder", overwrite=args.overwrite, inputs=inputs)
+    if args.per_point:
+        check_output_path(args.per_point, kind="file", overwrite=args.overwrite,
+                          inputs={**inputs, "report folder": args.out})
+        if args.likelihood_points == 0:
+            raise InputError("--per-point writes the log-likelihoods of --likelihood-points points; it is 0",
+                             field="per_point")
     model = heatwalk.load(args.model)
     x = files_for(model.space).read(args.data, model.space, _file_options(args, model),
                                     columns=model.record.get("columns"))
     report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
-                               likelihood_points=args.likelihood_points, progress=not args.quiet)
+                               likelihood_points=args.likelihood_points, progress=not args.quiet, device=device)
     report["model"] = str(Path(args.model).resolve())
     report["data_file"] = str(Path(args.data).resolve())
-    j, t = write_report(args.out, report)
-    pic = plot_data_and_samples(model.space, x, samples, Path(args.out) / "data_vs_samples.png",
-                                title="data vs samples")
+    with atomic_dir(out, overwrite=args.overwrite) as folder:  # the report appears whole, or not at all
+        names = write_report(folder, report)
+        pic = plot_data_and_samples(model.space, x, samples, folder / "data_vs_samples.png",
+                                    title="data vs samples")
+    written = [str(out / p.name) for p in (*names, *([pic] if pic else []))]
+    if args.per_point:
+        written.append(str(write_per_point(args.per_point, report, overwrite=args.overwrite)))
     print(format_table(report))
-    print(f"wrote {j}, {t}" + (f", {pic}" if pic else " (no picture for this space)"))
+    print(f"wrote {', '.join(written)}" + ("" if pic else " (no picture for this space)"))
     return 0
 
 
 def cmd_torsions(args) -> int:
+    from heatwalk.io.output_paths import check_output_path
     from heatwalk.io.structures import torsion_table, write_torsion_table
 
-    out = Path(args.out)
-    _refuse_existing(out, args.overwrite)
+    out = check_output_path(args.out, kind="file", overwrite=args.overwrite,
+                            inputs=[*args.structures, args.topology])
     table = torsion_table(args.structures, topology=args.topology, chi=args.chi,
                           keep_incomplete=args.keep_incomplete, progress=not args.quiet)
     write_torsion_table(table, out, overwrite=args.overwrite)

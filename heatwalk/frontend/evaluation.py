@@ -88,29 +88,39 @@ def split_halves(space, data, seed: int):
     return perm, space.take(data, perm[: n // 2]), space.take(data, perm[n // 2: 2 * (n // 2)])
 
 
-def likelihood_section(model, points: torch.Tensor) -> dict:
-    """Mean held-out log-likelihood of ``points`` with its standard error and what kind it is."""
-    out = model.log_prob(points)
-    ll = mean_log_likelihood(out["log_prob"])
+def likelihood_section(model, points: torch.Tensor, device=None) -> tuple[dict, torch.Tensor]:
+    """(mean held-out log-likelihood of ``points`` with its standard error and what kind it is, the
+    log-likelihood of each point in nats on the CPU); computed on ``device`` (None: the model's)."""
+    out = model.log_prob(points, device=device)
+    per_point = out["log_prob"].detach().cpu()
+    ll = mean_log_likelihood(per_point)
     bound = bool(out.get("bound", False))
     section = {"mean_nats": ll["mean"], "stderr_nats": ll["stderr"], "n": ll["n"], "is_bound": bound,
                "what": "lower bound (negative ELBO)" if bound else "probability-flow ODE"}
     if "bits_per_token" in out:
         section["bits_per_token"] = out["bits_per_token"]
-    return section
+    return section, per_point
 
 
 def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 300, sampler: str | None = None,
-             likelihood_points: int = 500, progress: bool = False) -> tuple[dict, torch.Tensor]:
-    """Evaluate ``model`` on validated points ``data``; returns (report dict, the samples drawn)."""
+             likelihood_points: int = 500, progress: bool = False, device=None) -> tuple[dict, torch.Tensor]:
+    """Evaluate ``model`` on validated points ``data``; returns (report dict, the samples drawn, on the CPU).
+
+    Sampling and log-likelihoods run on ``device`` (None: the model's); metrics on the CPU. With
+    ``likelihood_points`` > 0 the report's ``"log_likelihood"`` section also holds ``"rows"`` (0-based
+    row numbers of the points in ``data``) and ``"per_point_nats"`` (their log-likelihoods), which
+    :func:`write_per_point` writes as a table and :func:`write_report` leaves out of evaluation.json.
+    """
+    from heatwalk.core.devices import to_device
+
     space = model.space
     perm, half_a, half_b = split_halves(space, data, seed)
     n_b = space.n_points(half_b)
     report: dict = {"space": space.config(), "n_data": space.n_points(data), "n_half_a": space.n_points(half_a),
                     "n_half_b": n_b, "seed": seed, "timings_s": {}}
     t0 = time.perf_counter()
-    samples = model.sample(n_b, steps=sample_steps, sampler=sampler, seed=seed + 1,
-                           progress=progress)
+    samples = to_device(model.sample(n_b, steps=sample_steps, sampler=sampler, seed=seed + 1, progress=progress,
+                                     device=device), torch.device("cpu"))
     report["timings_s"]["sampling"] = time.perf_counter() - t0
     report["sampler"] = sampler or model.objective.default_sampler
     report["sample_steps"] = sample_steps
@@ -119,7 +129,9 @@ def evaluate(model, data: torch.Tensor, *, seed: int = 0, sample_steps: int = 30
     report["timings_s"]["metrics"] = time.perf_counter() - t0
     if likelihood_points > 0:
         t0 = time.perf_counter()
-        report["log_likelihood"] = likelihood_section(model, space.take(data, perm[:likelihood_points]))
+        rows = perm[:likelihood_points]
+        section, per_point = likelihood_section(model, space.take(data, rows), device=device)
+        report["log_likelihood"] = {**section, "rows": rows.tolist(), "per_point_nats": per_point.tolist()}
         report["timings_s"]["log_likelihood"] = time.perf_counter() - t0
     return report, samples
 
@@ -154,12 +166,32 @@ def format_table(report: dict) -> str:
     return "\n".join(lines)
 
 
+#: per-point entries of the report written by write_per_point, not to evaluation.json
+PER_POINT_KEYS = ("rows", "per_point_nats")
+
+
 def write_report(out_dir, report: dict) -> tuple[Path, Path]:
-    """evaluation.json and evaluation.txt in ``out_dir`` (each written atomically)."""
+    """evaluation.json and evaluation.txt in ``out_dir`` (each written atomically; the command writes them into
+    a temporary folder renamed into place as a whole)."""
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     j, t = out_dir / "evaluation.json", out_dir / "evaluation.txt"
+    if "log_likelihood" in report:
+        ll = {k: v for k, v in report["log_likelihood"].items() if k not in PER_POINT_KEYS}
+        report = {**report, "log_likelihood": ll}
     write_json(j, report)
     with atomic_path(t) as tmp:
         tmp.write_text(format_table(report) + "\n")
     return j, t
+
+
+def write_per_point(path, report: dict, *, overwrite: bool = False) -> Path:
+    """A table (.csv, .tsv, .parquet) of each evaluated point's log-likelihood: ``row`` (1-based row of the data
+    file's points) and ``log_likelihood_nats``; written atomically."""
+    import numpy as np
+
+    from heatwalk.io.tables import write_table
+
+    ll = report["log_likelihood"]
+    values = np.stack([np.asarray(ll["rows"], dtype=np.float64) + 1, np.asarray(ll["per_point_nats"])], axis=1)
+    return write_table(path, values, ["row", "log_likelihood_nats"], overwrite=overwrite)

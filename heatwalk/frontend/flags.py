@@ -1,12 +1,20 @@
 """The command line's options, declared once: argparse flags, their help (with defaults) and config-file keys.
 
 Each command is a list of :class:`Flag`. :func:`add_flags` turns them into
-argparse arguments whose help shows the default and the choices; for ``fit``
+argparse arguments whose help shows the default, the choices and the range; for ``fit``
 the same names (with ``_``) are the keys of the TOML config file
 (:mod:`heatwalk.frontend.config_file`), so every option can live in the file
 and a flag given on the command line overrides it. Flags are parsed with
 default ``None`` so that "given on the command line" is visible; the declared
 defaults are applied after the config file.
+
+Numbers have their admissible range declared here too (``minimum``,
+``maximum``, ``open_minimum``, ``open_maximum``; floats are always required finite), and
+:func:`apply_defaults` checks every value against it, so a value out of range
+is refused before any work with a message naming the flag, e.g.
+``--batch-size must be an integer in [1, 10000000], got 1000000000000``. The
+options the spaces declare carry their ranges the same way
+(:class:`heatwalk.spaces.Option`) and are checked by :func:`check_range` too.
 """
 
 from __future__ import annotations
@@ -28,6 +36,10 @@ class Flag:
     positional: bool = False
     nargs: str | None = None
     repeat: bool = False
+    minimum: float | None = None
+    maximum: float | None = None
+    open_minimum: bool = False
+    open_maximum: bool = False
 
     @property
     def flag(self) -> str:
@@ -47,9 +59,27 @@ def _spaces() -> tuple:
                  and k not in ("product",))
 
 
+#: caps that keep a mistyped number from asking for unbounded memory or time (far above any real use)
+MAX_SEED = 2**63 - 1
+MAX_BATCH = 10**7
+MAX_POINTS = 10**9
+MAX_STEPS = 10**9
+MAX_WIDTH = 2**16
+MAX_DEPTH = 1024
+MAX_THREADS = 4096
+
+
+def _seed(help_text: str) -> Flag:
+    return Flag("seed", int, help_text, default=0, minimum=0, maximum=MAX_SEED)
+
+
 COMMON_DEVICE = Flag("device", str, "where to compute: cpu, cuda, cuda:N, mps or auto (a GPU when present)",
                      default="cpu", metavar="DEVICE")
+THREADS = Flag("threads", int, "torch intra-op threads (default: torch's own choice, the number of physical cores "
+               "or OMP_NUM_THREADS when set; torchrun sets 1 per process)", metavar="N", minimum=1,
+               maximum=MAX_THREADS)
 QUIET = Flag("quiet", bool, "no progress bars (for scripts; results and summaries still print on stdout)")
+DEBUG = Flag("debug", bool, "on an unexpected error (a bug), also print the Python traceback, for a bug report")
 
 
 def fit_flags() -> list[Flag]:
@@ -64,39 +94,45 @@ def fit_flags() -> list[Flag]:
         Flag("delimiter", str, "cell separator of a text table (default: detected from , tab ; |)", metavar="CHAR"),
         Flag("out", str, "model folder to write", metavar="FOLDER"),
         Flag("overwrite", bool, "replace an existing model folder"),
-        Flag("train_steps", int, "training steps (Adam)", default=3000, metavar="N"),
-        Flag("batch_size", int, "training batch size (the global batch across processes)", default=512, metavar="N"),
-        Flag("learning_rate", float, "Adam learning rate, cosine-decayed to a tenth", default=2e-3, metavar="LR"),
+        Flag("train_steps", int, "training steps (Adam)", default=3000, metavar="N", minimum=1, maximum=MAX_STEPS),
+        Flag("batch_size", int, "training batch size (the global batch across processes)", default=512, metavar="N",
+             minimum=1, maximum=MAX_BATCH),
+        Flag("learning_rate", float, "Adam learning rate, cosine-decayed to a tenth", default=2e-3, metavar="LR",
+             minimum=0, open_minimum=True),
         Flag("hidden", int, "network width (default: the objective's: 256 for manifolds, 64 for sequences)",
-             metavar="N"),
-        Flag("depth", int, "network depth (hidden layers; transformer layers for sequences)", metavar="N"),
-        Flag("seed", int, "seed of every random draw (same seed, same model)", default=0),
+             metavar="N", minimum=1, maximum=MAX_WIDTH),
+        Flag("depth", int, "network depth (hidden layers; transformer layers for sequences)", metavar="N",
+             minimum=1, maximum=MAX_DEPTH),
+        _seed("seed of every random draw (same seed, same model)"),
         Flag("labels", str, "column holding a class name per row: fit a labelled model (for --label at sampling)",
              metavar="COLUMN"),
         Flag("label_dropout", float, "with --labels: fraction of rows trained without their label", default=0.1,
-             metavar="P"),
+             metavar="P", minimum=0, maximum=1, open_maximum=True),
         Flag("inpainting", bool, "also train to condition on known coordinates (torus, R^d): exact --fix/--given"),
         Flag("checkpoints", str, "folder for periodic training checkpoints", metavar="FOLDER"),
-        Flag("checkpoint_every", int, "steps between checkpoints", default=1000, metavar="N"),
+        Flag("checkpoint_every", int, "steps between checkpoints", default=1000, metavar="N", minimum=1,
+             maximum=MAX_STEPS),
         Flag("resume", bool, "continue from the checkpoint in --checkpoints"),
         COMMON_DEVICE,
-        Flag("threads", int, "torch intra-op threads (default: torch's own choice)", metavar="N"),
+        THREADS,
         QUIET,
+        DEBUG,
     ]
 
 
 def sample_flags() -> list[Flag]:
     return [
         Flag("model", str, "model folder written by 'heatwalk fit'", positional=True),
-        Flag("n", int, "number of samples", metavar="N"),
+        Flag("n", int, "number of samples", metavar="N", minimum=1, maximum=MAX_POINTS),
         Flag("out", str, "file to write: .csv .tsv .parquet .npz (points), .fasta .txt (sequences)", metavar="FILE"),
         Flag("overwrite", bool, "replace an existing file"),
-        Flag("reverse_steps", int, "steps of the reverse-time sampler", default=500, metavar="N"),
+        Flag("reverse_steps", int, "steps of the reverse-time sampler", default=500, metavar="N", minimum=1,
+             maximum=MAX_STEPS),
         Flag("sampler", str, "sampler (default: the model's)", choices=_samplers()),
-        Flag("seed", int, "seed of the sampler's draws", default=0),
+        _seed("seed of the sampler's draws"),
         Flag("label", str, "draw samples of this class (a model fitted with --labels)", metavar="NAME"),
         Flag("guidance", float, "classifier-free guidance weight with --label: 0 unconditional, 1 conditional, "
-             "> 1 sharper", default=1.0, metavar="W"),
+             "> 1 sharper", default=1.0, metavar="W", minimum=-1e6, maximum=1e6),
         Flag("given", str, "table of fixed values, columns named as in the data file (one row, or one per sample)",
              metavar="FILE"),
         Flag("fix", str, "fix one coordinate, e.g. --fix phi=-60 (units of the data file; repeatable)",
@@ -104,7 +140,9 @@ def sample_flags() -> list[Flag]:
         Flag("given_method", str, "how fixed coordinates are imposed (default: the model's best)",
              choices=("trained", "reconstruction", "replacement")),
         COMMON_DEVICE,
+        THREADS,
         QUIET,
+        DEBUG,
     ]
 
 
@@ -114,25 +152,32 @@ def evaluate_flags() -> list[Flag]:
         Flag("data", str, "held-out data in the format the model was fitted on", positional=True),
         Flag("out", str, "report folder (evaluation.json, evaluation.txt, a picture)", metavar="FOLDER"),
         Flag("overwrite", bool, "replace an existing report folder"),
-        Flag("reverse_steps", int, "steps of the reverse-time sampler", default=300, metavar="N"),
+        Flag("reverse_steps", int, "steps of the reverse-time sampler", default=300, metavar="N", minimum=1,
+             maximum=MAX_STEPS),
         Flag("sampler", str, "sampler (default: the model's)", choices=_samplers()),
         Flag("likelihood_points", int, "data points whose log-likelihood is computed (0: skip)", default=500,
-             metavar="N"),
+             metavar="N", minimum=0, maximum=MAX_POINTS),
         Flag("per_point", str, "also write each point's log-likelihood to this table (.csv, .tsv, .parquet)",
              metavar="FILE"),
-        Flag("seed", int, "seed of the split and of the sampler", default=0),
+        _seed("seed of the split and of the sampler"),
         COMMON_DEVICE,
+        THREADS,
         QUIET,
+        DEBUG,
     ]
 
 
 def demo_flags() -> list[Flag]:
     return [
         Flag("out", str, "output folder", default="demo-output", metavar="FOLDER"),
-        Flag("train_steps", int, "training steps", default=3000, metavar="N"),
-        Flag("reverse_steps", int, "steps of the reverse-time sampler", default=300, metavar="N"),
-        Flag("seed", int, "seed", default=0),
+        Flag("overwrite", bool, "replace an existing demo output folder"),
+        Flag("train_steps", int, "training steps", default=3000, metavar="N", minimum=1, maximum=MAX_STEPS),
+        Flag("reverse_steps", int, "steps of the reverse-time sampler", default=300, metavar="N", minimum=1,
+             maximum=MAX_STEPS),
+        _seed("seed"),
+        THREADS,
         QUIET,
+        DEBUG,
     ]
 
 
@@ -140,6 +185,7 @@ def add_flags(parser, flags: list[Flag]) -> None:
     """argparse arguments for ``flags`` (default None; help states the declared default and choices)."""
     for f in flags:
         text = f.help + (f" (default: {f.default})" if f.default is not None and f.kind is not bool else "")
+        text += range_text(f)
         if f.positional:
             parser.add_argument(f.name, help=text, nargs=f.nargs, metavar=f.name.upper())
         elif f.kind is bool:
@@ -151,8 +197,40 @@ def add_flags(parser, flags: list[Flag]) -> None:
                                 metavar=f.metavar if f.choices is None else None, help=text)
 
 
+def range_text(declared) -> str:
+    """The declared range of a number flag or option as help text, e.g. "; range [1, 10000000]" ("" when none)."""
+    lo, hi = declared.minimum, declared.maximum
+    if declared.kind not in (int, float) or (lo is None and hi is None):
+        return ""
+    left = "(" if declared.open_minimum or lo is None else "["
+    right = ")" if declared.open_maximum or hi is None else "]"
+    return f"; range {left}{'-inf' if lo is None else f'{lo:g}' if declared.kind is float else lo}, " \
+           f"{'inf' if hi is None else f'{hi:g}' if declared.kind is float else hi}{right}"
+
+
 def apply_defaults(args, flags: list[Flag]) -> None:
-    """Fill every option the user left unset with its declared default (False for switches)."""
+    """Fill every option the user left unset with its declared default (False for switches), then check
+    every number against its declared range (:func:`check_range`)."""
     for f in flags:
         if getattr(args, f.name, None) is None:
             setattr(args, f.name, False if f.kind is bool else f.default)
+    for f in flags:
+        check_range(f, getattr(args, f.name, None))
+
+
+def check_range(declared, value):
+    """``value`` of the flag or space option ``declared`` checked against its declared range; returns it.
+
+    ``declared`` is a :class:`Flag` or a :class:`heatwalk.spaces.Option` (both have ``kind``, ``flag``,
+    ``minimum``, ``maximum``, ``open_minimum``, ``open_maximum``). Floats must be finite; None (not given) passes. The error
+    names the flag.
+    """
+    from heatwalk.checks import check_int, check_number
+
+    if value is None or declared.kind not in (int, float):
+        return value
+    lo, hi = declared.minimum, declared.maximum
+    if declared.kind is int:
+        return check_int(declared.flag, value, minimum=lo, maximum=hi)
+    return check_number(declared.flag, value, minimum=lo, maximum=hi, open_minimum=declared.open_minimum,
+                        open_maximum=declared.open_maximum)

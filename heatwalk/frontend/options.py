@@ -27,13 +27,16 @@ def _declared_options():
 
 def add_space_option_flags(parser) -> None:
     """One flag per declared option; ``None`` (or False) when not given, so a user's choice is visible."""
+    from heatwalk.frontend.flags import range_text
+
     group = parser.add_argument_group("reading and writing data (options of the space)")
     for name, decls in _declared_options().items():
         first = decls[0][1]
-        if any(o.kind is not first.kind or o.choices != first.choices for _, o in decls):
-            raise TypeError(f"spaces declare option {name!r} with different types or choices")
+        ranges = [(o.kind, o.choices, o.minimum, o.maximum, o.open_minimum, o.open_maximum) for _, o in decls]
+        if any(r != ranges[0] for r in ranges):
+            raise TypeError(f"spaces declare option {name!r} with different types, choices or ranges")
         help_text = "; ".join(f"{kind}: {o.help}" + (f" (default {o.default})" if o.default is not None else "")
-                              for kind, o in decls)
+                              for kind, o in decls) + range_text(first)
         if first.kind is bool:
             group.add_argument(first.flag, dest=name, action="store_true", default=None, help=help_text)
         else:
@@ -42,8 +45,11 @@ def add_space_option_flags(parser) -> None:
 
 
 def chosen_options(args, space_cls) -> dict:
-    """The declared options the user set on the command line, checked against the space ``space_cls``."""
-    declared = {o.name for o in (*space_cls.file_options, *space_cls.build_options)}
+    """The declared options the user set on the command line, checked against the space ``space_cls``
+    (declared by it, and in the declared range)."""
+    from heatwalk.frontend.flags import check_range
+
+    declared = {o.name: o for o in (*space_cls.file_options, *space_cls.build_options)}
     chosen = {}
     for name, decls in _declared_options().items():
         value = getattr(args, name, None)
@@ -53,10 +59,15 @@ def chosen_options(args, space_cls) -> dict:
             takes = ", ".join(o.flag for o in (*space_cls.file_options, *space_cls.build_options)) or "none"
             raise InputError(f"{decls[0][1].flag} does not apply to --space {space_cls.kind} "
                              f"(its options: {takes})", field=name)
-        chosen[name] = value
+        chosen[name] = check_range(declared[name], value)
     return chosen
 
 
 def declared_option_kinds() -> dict[str, type]:
     """{option name: its type} over every registered space's declared options (the config file's extra keys)."""
     return {name: decls[0][1].kind for name, decls in _declared_options().items()}
+
+
+def declared_option_flags() -> dict[str, str]:
+    """{option name: its flag} over every registered space's declared options."""
+    return {name: decls[0][1].flag for name, decls in _declared_options().items()}

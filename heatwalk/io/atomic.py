@@ -45,8 +45,10 @@ from heatwalk.notices import warn
 #: files that make a folder a heatwalk model folder: model.json and one of the weight files
 MODEL_CONFIG = "model.json"
 WEIGHT_FILES = ("weights.safetensors", "weights.pt")
-#: the file that makes a folder a heatwalk report folder
+#: the file that makes a folder a heatwalk report folder (written by ``heatwalk evaluate``)
 REPORT_FILE = "evaluation.json"
+#: the file that makes a folder a heatwalk demo folder (written by ``heatwalk demo``)
+DEMO_REPORT = "demo_report.json"
 #: a temporary whose process still runs is stale anyway after this long (the PID may have been reused)
 STALE_AGE_SECONDS = 7 * 24 * 3600.0
 #: a temporary of an older heatwalk (no PID in its name) is stale after this long
@@ -80,7 +82,7 @@ def folder_mode() -> int:
 
 # ----- what may be replaced -----------------------------------------------------------------------
 def folder_kind(path) -> str | None:
-    """``"model"``, ``"report"`` or ``"empty"`` for a folder heatwalk may replace, else None."""
+    """``"model"``, ``"report"``, ``"demo"`` or ``"empty"`` for a folder heatwalk may replace, else None."""
     path = Path(path)
     try:
         names = {p.name for p in path.iterdir()}
@@ -92,6 +94,8 @@ def folder_kind(path) -> str | None:
         return "model"
     if (path / REPORT_FILE).is_file():
         return "report"
+    if (path / DEMO_REPORT).is_file():
+        return "demo"
     return None
 
 
@@ -100,7 +104,8 @@ def check_replaceable(path, kind: str) -> None:
 
     A file may replace a regular file only. A folder may replace a folder only, and only one that
     heatwalk wrote: a model folder (``model.json`` and ``weights.safetensors`` or ``weights.pt``), a
-    report folder (``evaluation.json``) or an empty folder. Symbolic links to folders are refused.
+    report folder (``evaluation.json``), a demo folder (``demo_report.json``) or an empty folder.
+    Symbolic links to folders are refused.
     A ``path`` that does not exist passes.
     """
     path = Path(path)
@@ -126,7 +131,7 @@ def check_replaceable(path, kind: str) -> None:
         shown = sorted(p.name for p in path.iterdir())
         listing = ", ".join(shown[:3]) + (", …" if len(shown) > 3 else "")
         raise InputError(f"{path} is a folder that heatwalk did not write (it holds {len(shown)} entries: {listing}); "
-                         f"only a model folder, a report folder or an empty folder is replaced: choose another "
+                         f"only a model, report or demo folder or an empty folder is replaced: choose another "
                          f"output", field=str(path))
 
 
@@ -284,7 +289,7 @@ def atomic_dir(path, *, overwrite: bool = False):
     """Yield a temporary folder beside ``path``; on success it replaces ``path``.
 
     An existing ``path`` is replaced only when ``overwrite`` and only when it is a heatwalk model
-    folder, report folder or an empty folder (:func:`check_replaceable`); anything else is refused
+    folder, report folder, demo folder or an empty folder (:func:`check_replaceable`); anything else is refused
     with :class:`InputError` before any work, and nothing is changed. The folder ends with mode
     0777 & ~umask.
     """

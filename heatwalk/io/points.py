@@ -21,9 +21,11 @@ which space it has:
 
 from __future__ import annotations
 
+import zipfile
 from pathlib import Path
 
 from heatwalk.errors import InputError
+from heatwalk.io import arrays
 from heatwalk.io.formats import check_output_format
 from heatwalk.io.sequence_files import read_records, write_records
 from heatwalk.spaces.alphabet import check_alphabet, encode_strings
@@ -65,6 +67,29 @@ def split_options(space_cls, options: dict) -> tuple[dict, dict]:
             {k: v for k, v in options.items() if k in build_names})
 
 
+def mapped_array_file(path) -> bool:
+    """Whether ``fit`` reads the table ``path`` memory-mapped: a ``.npy`` file, or a ``.npz`` archive holding one
+    array, of at least :data:`heatwalk.io.arrays.MEMMAP_MIN_BYTES` bytes.
+
+    Its rows are then read batch by batch (:mod:`heatwalk.core.data_source`), never the whole file, and they
+    are taken as stored: the points in the space's own coordinates (what the space reads with its default
+    reading options, e.g. radians, unit vectors, row-major rotation matrices). Smaller files, and archives of
+    named columns, are read whole by :func:`heatwalk.io.tables.read_table`.
+    """
+    path = Path(path)
+    if path.suffix.lower() not in (".npy", ".npz") or not path.is_file():
+        return False
+    if path.stat().st_size < arrays.MEMMAP_MIN_BYTES:
+        return False
+    if path.suffix.lower() == ".npy":
+        return True
+    try:
+        with zipfile.ZipFile(path) as archive:
+            return sum(name.endswith(".npy") for name in archive.namelist()) == 1
+    except (zipfile.BadZipFile, OSError):
+        return False
+
+
 class TableFiles:
     """Tables of numbers (CSV, TSV, Parquet, NPZ), one point per row (:mod:`heatwalk.io.tables`)."""
 
@@ -73,6 +98,8 @@ class TableFiles:
 
     def read_new(self, path, space_cls, options: dict, *, columns=None, labels=None, delimiter=None):
         file_opts, build_opts = split_options(space_cls, options)
+        if mapped_array_file(path):
+            return self._read_mapped(path, space_cls, file_opts, build_opts, columns, labels, delimiter)
         table = read_table(path, columns=columns, labels=labels, delimiter=delimiter)
         if table.values.shape[1] == 0:
             raise InputError(f"{path}: no data columns are left (all were ignored or used as labels)",
@@ -81,6 +108,32 @@ class TableFiles:
         facts = {"columns": list(table.names), "ignored": list(table.ignored), "labels": table.labels,
                  "label_column": table.label_name}
         return space, points_from_table(path, space, table, **file_opts), facts
+
+    @staticmethod
+    def _read_mapped(path, space_cls, file_opts, build_opts, columns, labels, delimiter):
+        """(space, memory-mapped points, facts) of a large array file (see :func:`mapped_array_file`)."""
+        given = {"columns": columns, "labels": labels, "delimiter": delimiter, **file_opts}
+        refused = [(name, value) for name, value in given.items() if value not in (None, False)]
+        if refused:
+            name, value = refused[0]
+            value = ",".join(map(str, value)) if isinstance(value, (list, tuple)) else value
+            raise InputError(f"{path}: a numpy array file of {arrays.MEMMAP_MIN_BYTES} bytes or more is read "
+                             f"memory-mapped, its rows as the points are stored (the default reading options); "
+                             f"{name}={value!r} cannot be applied to it: convert the file first", field=name)
+        rows = arrays.open_array(path)
+        if rows.ndim == 1:  # one column
+            rows = rows.reshape(-1, 1)
+        if rows.ndim != 2:
+            raise InputError(f"{path}: holds an array of shape {tuple(rows.shape)}; a table of points is a 2-D "
+                             f"array (one row per point)", field="data")
+        space = space_cls.from_table(rows.shape[1], **build_opts)
+        if rows.shape[1] != space.n_columns:
+            raise InputError(f"{path}: {rows.shape[1]} columns per row, but {space!r} stores {space.n_columns}",
+                             field="columns")
+        points = rows.reshape(rows.shape[0], *space.ambient_shape)  # a view: nothing is read
+        facts = {"columns": list(space.column_names()), "ignored": [], "labels": None, "label_column": None,
+                 "memory_mapped": True}
+        return space, points, facts
 
     def read(self, path, space, options: dict, *, columns=None, delimiter=None):
         if columns is not None:

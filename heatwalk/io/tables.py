@@ -20,6 +20,7 @@ read back gives the same float64 values, bit for bit.
 
 from __future__ import annotations
 
+import itertools
 from pathlib import Path
 
 import numpy as np
@@ -178,14 +179,35 @@ def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
     space.check_file_options(options)
     expected = space.n_columns_for(**options)
     if rows.shape[1] != expected:
-        raise InputError(f"{path}: {rows.shape[1]} columns per row, but {space!r} with options {options or '{}'} "
-                         f"needs {expected}")
+        read_with = ", ".join(f"{k}={v!r}" for k, v in options.items()) or "its default reading options"
+        raise InputError(f"{path}: {rows.shape[1]} columns per row, but {space!r} read with {read_with} needs "
+                         f"{expected}{_options_for_columns(space, rows.shape[1])}", field="columns")
     try:
         return space.from_rows(rows, **options)
     except InputError as e:
         if e.row is not None and 0 <= e.row < len(lines):
             raise e.located(f"{path}, {unit} {int(lines[e.row])}") from None
         raise e.located(str(path)) from None
+
+
+def _options_for_columns(space: Space, n_columns: int) -> str:
+    """A hint naming the reading options (``name=value``) with which ``space`` reads ``n_columns`` columns, or ""."""
+    choices = [o for o in space.file_options if o.choices]
+    if not choices:
+        return ""
+    fits = []
+    for values in itertools.product(*[(None, *o.choices) for o in choices]):
+        options = {o.name: v for o, v in zip(choices, values) if v is not None}
+        try:
+            if options and space.n_columns_for(**options) == n_columns:
+                fits.append(options)
+        except InputError:
+            continue
+    if not fits:
+        return ""
+    fewest = min(len(f) for f in fits)
+    ways = [", ".join(f"{k}={v!r}" for k, v in f.items()) for f in fits if len(f) == fewest]
+    return f"; {n_columns} columns are read with {' or '.join(ways)}"
 
 
 def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, names=None, **options) -> Path:
