@@ -410,6 +410,23 @@ class Categories(FiniteStateSpace):
         jump = jump & (torch.arange(self.n_states, device=xt.device) != xt.unsqueeze(-1))
         return torch.where(jump, torch.log(torch.where(jump, into, 1.0)) + torch.where(jump, ratio, 0.0), ninf)
 
+    def _closed_form_integrand(self, xt, x0, log_x0_probs, t):
+        """Absorbing chain: (1/t) Σ_{l: x_t,l = mask} −log p_θ(x_0,l | x_t), nats per unit time; else None.
+
+        With masking probability 1 − α_t = t (α_t = e^{−τ(t)} = 1 − t) a masked position jumps back
+        to the data state v at the model rate r_θ = R_t(v → mask) p_θ(v) P_t[v, v] / P_t[v, mask]
+        = p_θ(v) / t, the exact rate is 1[v = x_0,l] / t, and an unmasked position never jumps. Summed
+        over v, r_θ − r + r log(r / r_θ) is then −log p_θ(x_0,l | x_t) / t at a masked position and
+        0 elsewhere: the weight −α'_t / (1 − α_t) = 1/t times the cross-entropy on the masked
+        positions (the masked-diffusion ELBO of Sahoo et al. 2024, eq. 10, and Shi et al. 2024,
+        eq. 5, with the linear schedule). It equals the general rates expression for every x_t.
+        """
+        if self.mask_state is None:
+            return None
+        masked = xt == self.mask_state
+        nll = -torch.gather(log_x0_probs, 2, x0.unsqueeze(-1)).squeeze(-1)          # (n, L)
+        return torch.where(masked, nll, 0.0).sum(-1) / t
+
     def _prior_kl(self, x0, t) -> torch.Tensor:
         """Σ_l KL(P_t[x0_l, ·] || π) in nats: the prior term of the ELBO (0 at t = 1). Shape (n,)."""
         p = self.transition(t)

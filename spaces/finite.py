@@ -9,7 +9,9 @@ the :class:`~heatwalk.spaces.base.Space` methods a finite space offers
 - ``x0_support(xt, t)``: which data states can have produced x_t;
 - ``posterior(xt, x0_probs, s, t)``: q(x_s | x_t) for a law of x_0 (ancestral steps);
 - ``log_reverse_rates(xt, log_x0_probs, t)``: the reverse-time jump rates;
-- ``prior_kl(x0, t)``: the prior term of the ELBO.
+- ``prior_kl(x0, t)``: the prior term of the ELBO;
+- ``closed_form_integrand(xt, x0, log_x0_probs, t)``: the ELBO's integrand in closed form, for a chain
+  that has one (None otherwise: the objective then evaluates it from ``log_reverse_rates``).
 
 Public methods check and broadcast (points (n, L) int64, times a scalar or
 (n,)), then call the private ``_``-method of the subclass with times of
@@ -73,6 +75,20 @@ class FiniteStateSpace(Space):
     def prior_kl(self, x0: torch.Tensor, t) -> torch.Tensor:
         """Σ_l KL(P_t[x0_l, ·] || π) in nats: the prior term of the ELBO. Shape (n,)."""
         return self._prior_kl(x0, self._times(t, x0))
+
+    def closed_form_integrand(self, xt: torch.Tensor, x0: torch.Tensor, log_x0_probs: torch.Tensor, t):
+        """Σ_l Σ_{v ≠ x_t,l} [r_θ − r + r log(r / r_θ)](x_t → v) per row (n,), in nats per unit time, or None.
+
+        The integrand of the continuous-time ELBO (see :mod:`heatwalk.core.objectives.discrete_elbo`) at
+        (x_t, t) for the sequence x_0, with model x_0 log-probabilities ``log_x0_probs`` (n, L, K) restricted
+        to :meth:`x0_support`. A chain whose integrand has a closed form returns it (it must equal the
+        general expression through :meth:`log_reverse_rates` for every x_t, not only in expectation);
+        the default is None: no closed form, the objective uses the reverse rates.
+        """
+        return self._closed_form_integrand(xt, x0, log_x0_probs, self._times(t, xt))
+
+    def _closed_form_integrand(self, xt, x0, log_x0_probs, t):
+        return None
 
     @abstractmethod
     def _x0_support(self, xt, t): ...

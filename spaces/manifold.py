@@ -80,6 +80,22 @@ class Manifold(Space):
                         dtype=x.dtype, device=x.device, generator=generator)
         return _combine(z, basis, len(self.ambient_shape))
 
+    @property
+    def probe_shape(self) -> tuple[int, ...]:
+        """Shape of the standard normal noise one tangent probe is made from (:meth:`probe_tangent`)."""
+        return (self.dim,)
+
+    def probe_tangent(self, x: torch.Tensor, z: torch.Tensor) -> torch.Tensor:
+        """The tangent vector at ``x`` made from noise ``z`` of shape (..., *probe_shape), linear in z.
+
+        For z standard normal its covariance is the identity in the metric at *every* x, and it is
+        smooth in x for a fixed z: Hutchinson's divergence estimator can then hold z fixed along an
+        ODE solution (one draw per point and integration) and stay unbiased at each point visited.
+        Default: Σ_i z_i e_i(x) over :meth:`tangent_basis` (a space whose basis is not smooth in x
+        overrides this).
+        """
+        return _combine(z, self.tangent_basis(x), len(self.ambient_shape))
+
     # ----- the heat flow ---------------------------------------------------------------------
     def score(self, xt: torch.Tensor, x0: torch.Tensor, t) -> torch.Tensor:
         """Riemannian gradient in ``xt`` of ``log_kernel(xt, x0, t)``: a tangent vector at xt."""

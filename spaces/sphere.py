@@ -163,6 +163,15 @@ class Sphere(IsotropicKernel, Manifold):
         z = torch.randn(x.shape, dtype=x.dtype, device=x.device, generator=generator)
         return self.to_tangent(x, z)
 
+    @property
+    def probe_shape(self) -> tuple[int, ...]:
+        return (self.d + 1,)
+
+    def probe_tangent(self, x, z):
+        """(I - x xᵀ) z for ambient noise z: covariance I - x xᵀ, the identity on x^⊥, and smooth in x
+        (the Householder basis of :meth:`tangent_basis` flips where x_0 changes sign)."""
+        return self.to_tangent(x, z)
+
     def random_uniform(self, n, generator=None):
         z = torch.randn(n, self.d + 1, dtype=DTYPE, device=generator_device(generator), generator=generator)
         return z / torch.linalg.vector_norm(z, dim=-1, keepdim=True)

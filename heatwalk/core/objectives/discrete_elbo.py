@@ -21,6 +21,14 @@ schedule. x_0 probabilities are restricted to the states a that can have
 produced x_t (Pr(x_t | a) > 0), which for the absorbing chain is the
 "carry-over" of unmasked tokens.
 
+Which expression evaluates the integrand is the space's business: the
+objective asks ``space.closed_form_integrand`` first (the absorbing chain
+answers with the time-weighted cross-entropy on the masked positions, which
+needs neither reverse rates nor the exact rates given x_0) and falls back on
+the reverse-rates expression above when the chain has no closed form, or when
+the objective is built with ``integrand="rates"`` (the general expression on
+every chain; equal to the closed form for every x_t, up to rounding).
+
 The integral is estimated with stratified uniform times; the prior term is
 exact (0 at t_max = 1). Units: nats per sequence; ``loss`` reports nats per
 token.
@@ -34,7 +42,7 @@ from dataclasses import dataclass
 import torch
 from torch import nn
 
-from heatwalk.checks import check_int, check_number
+from heatwalk.checks import check_choice, check_int, check_number
 from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gradient
 from heatwalk.core.devices import input_device, make_generator
 from heatwalk.core.fields import X0ProbabilityField
@@ -48,6 +56,8 @@ from heatwalk.spaces.base import generator_device
 from heatwalk.spaces.finite import FiniteStateSpace
 
 LN2 = math.log(2.0)
+#: how the ELBO integrand is evaluated (see the module docstring)
+INTEGRANDS = ("auto", "rates")
 
 
 @dataclass
@@ -81,6 +91,8 @@ class DiscreteELBO(Objective):
     schedule : time range [t_min, t_max] (t_max <= 1) and time features for the network
     ce_weight : weight of an auxiliary cross-entropy −log p_θ(x_0 | x_t) per token (D3PM's λ; 0 = pure ELBO)
     recon_fraction : fraction of each training batch on which the reconstruction term is estimated
+    integrand : "auto" (the space's closed form of the ELBO integrand where its chain has one, else the
+        reverse-rates expression) or "rates" (the reverse-rates expression on every chain)
     """
 
     name = "discrete_elbo"
@@ -89,7 +101,7 @@ class DiscreteELBO(Objective):
     likelihood_is_bound = True
 
     def __init__(self, space, schedule: TimeSchedule, ce_weight: float = 0.0, recon_fraction: float = 0.25,
-                 classes=None, label_dropout: float = 0.1, inpainting: bool = False):
+                 classes=None, label_dropout: float = 0.1, inpainting: bool = False, integrand: str = "auto"):
         if not isinstance(space, FiniteStateSpace):
             raise InputError(f"the discrete ELBO needs a finite state space, got {type(space).__name__}",
                              field="space")
@@ -99,6 +111,7 @@ class DiscreteELBO(Objective):
         super().__init__(space, schedule, classes, label_dropout, inpainting)
         self.ce_weight = check_number("ce_weight", ce_weight, minimum=0)
         self.recon_fraction = check_number("recon_fraction", recon_fraction, minimum=0, open_minimum=True, maximum=1)
+        self.integrand = check_choice("integrand", integrand, INTEGRANDS)
         # cpu: a one-off check of the time range when the objective is built
         states = torch.arange(space.K).reshape(-1, 1).expand(-1, space.L)
         if not bool(torch.isfinite(space.prior_kl(states, schedule.t_max)).all()):
@@ -107,11 +120,14 @@ class DiscreteELBO(Objective):
 
     @classmethod
     def from_config(cls, space, config: dict) -> "DiscreteELBO":
-        extra = {k: config[k] for k in ("ce_weight", "recon_fraction") if k in config}
+        extra = {k: config[k] for k in ("ce_weight", "recon_fraction", "integrand") if k in config}
         return cls(space, TimeSchedule(**config["schedule"]), **extra, **cls._label_config(config))
 
     def config(self) -> dict:
-        return {**super().config(), "ce_weight": self.ce_weight, "recon_fraction": self.recon_fraction}
+        out = {**super().config(), "ce_weight": self.ce_weight, "recon_fraction": self.recon_fraction}
+        if self.integrand != "auto":
+            out["integrand"] = self.integrand
+        return out
 
     # ----- network ------------------------------------------------------------------------------
     def default_network(self, architecture: str | None = None, **options) -> nn.Module:
@@ -185,7 +201,17 @@ class DiscreteELBO(Objective):
 
     # ----- the bound ---------------------------------------------------------------------------
     def _integrand(self, xt, x0, t, log_p):
-        """Σ_l Σ_v [r_θ − r + r log(r/r_θ)] for each row: (n,)."""
+        """Σ_l Σ_v [r_θ − r + r log(r/r_θ)] for each row: (n,); the space's closed form where it has one."""
+        if self.integrand == "auto":
+            closed = self.space.closed_form_integrand(xt, x0, log_p, t)
+            if closed is not None:
+                if not bool(torch.isfinite(closed).all()):
+                    raise FloatingPointError("model x_0 probability is zero at a masked data token")
+                return closed
+        return self._rates_integrand(xt, x0, t, log_p)
+
+    def _rates_integrand(self, xt, x0, t, log_p):
+        """The integrand from the reverse rates (any chain): model and exact rates, then the bracket."""
         sp = self.space
         onehot = torch.nn.functional.one_hot(x0, sp.K).bool()
         log_true = torch.where(onehot, 0.0, -math.inf).to(torch.float64)
@@ -212,18 +238,27 @@ class DiscreteELBO(Objective):
         return sp.sample_forward(x0, t, generator), sp.sample_forward(x_rec, self.schedule.t_min, generator)
 
     def _evaluate(self, net, x0, t, xt, x_rec, xr, labels=None, labels_rec=None):
-        """The terms of :meth:`_terms` from drawn states (deterministic: the network and the bound's integrand)."""
+        """The terms of :meth:`_terms` from drawn states (deterministic: the network and the bound's integrand).
+
+        A reconstruction row whose x_{t_min} leaves one possible data state at every position
+        (:meth:`x0_support`; on the absorbing chain: no position masked, most rows at t_min) has
+        −log p_θ(x_0 | x_{t_min}) = 0 exactly, whatever the network says, and no gradient: it is not
+        sent through the network.
+        """
         sch = self.schedule
-        m = x_rec.shape[0]
+        m, n = x_rec.shape[0], x0.shape[0]
         tr = torch.full((m,), sch.t_min, dtype=torch.float64, device=t.device)
-        states, times = torch.cat([xt, xr]), torch.cat([t, tr])
+        open_rows = (self.space.x0_support(xr, tr).sum(-1) > 1).any(-1)            # (m,) x_0 not determined
+        states, times = torch.cat([xt, xr[open_rows]]), torch.cat([t, tr[open_rows]])
         if labels is None:
             log_p_all = self.log_x0_probs(net, states, times)
         else:
-            log_p_all = self.log_x0_probs(net, states, times, torch.cat([labels, labels_rec]))
-        log_p, log_r = log_p_all[: x0.shape[0]], log_p_all[x0.shape[0]:]
+            log_p_all = self.log_x0_probs(net, states, times, torch.cat([labels, labels_rec[open_rows]]))
+        log_p, log_r = log_p_all[:n], log_p_all[n:]
         integral = (sch.t_max - sch.t_min) * self._integrand(xt, x0, t, log_p)
-        recon = -torch.gather(log_r, 2, x_rec.unsqueeze(-1)).squeeze(-1).sum(-1)
+        recon = torch.zeros(m, dtype=torch.float64, device=t.device)
+        recon = recon.masked_scatter(open_rows, -torch.gather(log_r, 2, x_rec[open_rows].unsqueeze(-1))
+                                     .squeeze(-1).sum(-1))
         ce = -torch.gather(log_p, 2, x0.unsqueeze(-1)).squeeze(-1).sum(-1) if self.ce_weight else None
         return integral, recon, ce
 

@@ -30,7 +30,7 @@ import torch
 
 from heatwalk.checks import check_int
 from heatwalk.core.fields import ScoreField
-from heatwalk.samplers.flow_ode import FlowField, integrate
+from heatwalk.samplers.flow_ode import MAX_STEPS, FlowField, integrate
 from heatwalk.spaces.base import DTYPE
 from heatwalk.spaces.manifold import Manifold
 
@@ -100,6 +100,19 @@ class ManifoldFactors(Manifold):
 
     def random_tangent(self, x, generator=None):
         return self.join([f.random_tangent(p, generator) for f, p in zip(self.factors, self.split(x))])
+
+    @property
+    def probe_shape(self) -> tuple[int, ...]:
+        return (sum(math.prod(f.probe_shape) for f in self.factors),)
+
+    def probe_tangent(self, x, z):
+        """Each factor's probe from its slice of the noise."""
+        parts, j = [], 0
+        for f, p in zip(self.factors, self.split(x)):
+            k = math.prod(f.probe_shape)
+            parts.append(f.probe_tangent(p, z[..., j:j + k].reshape(*z.shape[:-1], *f.probe_shape)))
+            j += k
+        return self.join(parts)
 
     def random_uniform(self, n, generator=None):
         return self.join([f.random_uniform(n, generator) for f in self.factors])
@@ -179,7 +192,9 @@ def _manifold_log_prob(objective, net, x, labels, finite_state, options) -> tupl
     with torch.no_grad():
         xT, div_int, se, _ = integrate(flow, flat, 1.0, math.e, method=options.get("method", "dopri5"),
                                        steps=options.get("steps", 100), rtol=options.get("rtol", 1e-5),
-                                       atol=options.get("atol", 1e-6), with_div=True)
+                                       atol=options.get("atol", 1e-6), with_div=True,
+                                       step_control=options.get("step_control", "point"),
+                                       max_steps=options.get("max_steps", MAX_STEPS))
     return view.prior_log_prob(xT) + div_int + view.log_volume_density(flat), se
 
 
