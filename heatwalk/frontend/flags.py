@@ -126,6 +126,32 @@ def evaluate_flags() -> list[Flag]:
     ]
 
 
+def plot_flags() -> list[Flag]:
+    return [
+        Flag("model", str, "model folder written by 'heatwalk fit': its density (or samples drawn from it), and the "
+             "reading options and columns of --data and --samples", metavar="FOLDER"),
+        Flag("data", str, "data file to draw (points over the density)", metavar="FILE"),
+        Flag("samples", str, "samples file to draw (e.g. written by 'heatwalk sample')", metavar="FILE"),
+        Flag("space", str, "the state space of --data / --samples when no --model is given", choices=_spaces()),
+        Flag("columns", str, "data columns by name, in this order, without --model (with it: the model's columns)",
+             metavar="NAME,NAME"),
+        Flag("delimiter", str, "cell separator of a text table (default: detected from , tab ; |)", metavar="CHAR"),
+        Flag("out", str, "picture to write: .png, .svg or .pdf", metavar="PICTURE"),
+        Flag("overwrite", bool, "replace an existing picture"),
+        Flag("losses", bool, "draw the model's training loss per step instead (needs --model)"),
+        Flag("size", str, "width,height of the picture in pixels (default: chosen for the picture)", metavar="W,H"),
+        Flag("dpi", int, "dots per inch (sets the size of text and lines relative to the pixels)", default=100,
+             metavar="N"),
+        Flag("title", str, "title above the picture (default: says what is drawn, from which files)", metavar="TEXT"),
+        Flag("n_samples", int, "samples drawn from --model where the picture cannot show its density from log_prob",
+             default=2000, metavar="N"),
+        Flag("reverse_steps", int, "steps of the reverse-time sampler for those samples", default=300, metavar="N"),
+        Flag("sampler", str, "sampler for those samples (default: the model's)", choices=_samplers()),
+        Flag("seed", int, "seed of the sampler's draws", default=0),
+        QUIET,
+    ]
+
+
 def demo_flags() -> list[Flag]:
     return [
         Flag("out", str, "output folder", default="demo-output", metavar="FOLDER"),
