@@ -12,10 +12,11 @@ README = Path(__file__).resolve().parent.parent / "README.md"
 
 #: appended to each command so the tour runs in seconds; a later flag overrides an earlier one in argparse
 SMALL = {
-    "demo": ["--train-steps", "30", "--reverse-steps", "5", "--quiet"],
+    "demo": ["--train-steps", "30", "--reverse-steps", "5", "--likelihood-points", "5", "--quiet"],
     "fit": ["--train-steps", "20", "--hidden", "16", "--quiet"],
     "sample": ["--reverse-steps", "5", "--quiet"],
     "evaluate": ["--reverse-steps", "5", "--likelihood-points", "5", "--quiet"],
+    "plot": ["--n-samples", "200", "--reverse-steps", "5", "--grid", "12", "--quiet"],
 }
 
 

@@ -212,26 +212,30 @@ def cmd_sample(args) -> int:
 # ----- evaluate, torsions ------------------------------------------------------------------------------
 def cmd_evaluate(args) -> int:
     import heatwalk
-    from heatwalk.frontend.evaluation import evaluate, format_table, write_report
+    from heatwalk.frontend.evaluation import evaluate, format_table, write_per_point, write_pictures, write_report
     from heatwalk.frontend.flags import apply_defaults, evaluate_flags
-    from heatwalk.frontend.plots import plot_data_and_samples
+    from heatwalk.frontend.picture_command import picture_units_and_names
     from heatwalk.io.points import files_for
 
     apply_defaults(args, evaluate_flags())
     _require(args, "out")
     _refuse_existing(Path(args.out), args.overwrite)
     model = heatwalk.load(args.model)
-    x = files_for(model.space).read(args.data, model.space, _file_options(args, model),
-                                    columns=model.record.get("columns"))
-    report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
-                               likelihood_points=args.likelihood_points, progress=not args.quiet)
-    report["model"] = str(Path(args.model).resolve())
-    report["data_file"] = str(Path(args.data).resolve())
-    j, t = write_report(args.out, report)
-    pic = plot_data_and_samples(model.space, x, samples, Path(args.out) / "data_vs_samples.png",
-                                title="data vs samples")
-    print(format_table(report))
-    print(f"wrote {j}, {t}" + (f", {pic}" if pic else " (no picture for this space)"))
+    if args.per_point and args.likelihood_points == 0:
+        raise InputError("--per-point needs log-likelihoods: --likelihood-points must be > 0", field="per_point")
+    options = _file_options(args, model)
+    columns = model.record.get("columns")
+    x = files_for(model.space).read(args.data, model.space, options, columns=columns)
+    result = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
+                      likelihood_points=args.likelihood_points, progress=not args.quiet, data_file=args.data,
+                      columns=columns or (model.space.column_names(**options) if model.space.file_kind == "table" else None),
+                      model_folder=args.model)
+    written = list(write_report(args.out, result.report))
+    if args.per_point:
+        written.append(write_per_point(Path(args.out) / "per_point.csv", result))
+    written += write_pictures(args.out, model, x, result, picture_units_and_names(model.space, options, columns))
+    print(format_table(result.report))
+    print("wrote " + ", ".join(map(str, written)))
     return 0
 
 

@@ -1,4 +1,9 @@
-"""``heatwalk demo``: fit, sample and evaluate the built-in invented torsion-angle scenario."""
+"""``heatwalk demo``: fit, sample and evaluate the built-in invented torsion-angle scenario.
+
+The report (report.json, report.txt) follows the one report schema of ``heatwalk evaluate``
+(:mod:`heatwalk.frontend.report_schema`), on the 2,000 held-out pairs, with the metrics of uniform
+angles beside those of the model's samples (``sample_metrics.uniform_baseline``).
+"""
 
 from __future__ import annotations
 
@@ -6,15 +11,11 @@ from pathlib import Path
 
 
 def cmd_demo(args) -> int:
-    import numpy as np
-    import torch
-
     import heatwalk
     from heatwalk.frontend.demo_data import lanternfold_torsions
+    from heatwalk.frontend.evaluation import evaluate, format_table, write_pictures, write_report
     from heatwalk.frontend.flags import apply_defaults, demo_flags
-    from heatwalk.frontend.evaluation import sample_metrics
-    from heatwalk.frontend.plots import plot_data_and_samples
-    from heatwalk.io.atomic import write_json
+    from heatwalk.frontend.plots import plot, save_figure
     from heatwalk.io.tables import write_points
     from heatwalk.spaces import Torus
 
@@ -23,28 +24,22 @@ def cmd_demo(args) -> int:
     out.mkdir(parents=True, exist_ok=True)
     space = Torus(2)
     data = space.validate(lanternfold_torsions(6000, seed=args.seed))
-    train, held_a, held_b = data[:4000], data[4000:5000], data[5000:]
+    train, heldout = data[:4000], data[4000:]
     print("demo: fitting backbone torsions (phi, psi) of the invented 'lanternfold' peptide family on T^2")
     write_points(out / "lanternfold_torsions.csv", space, train, overwrite=True)
-    write_points(out / "heldout.csv", space, data[4000:], overwrite=True)
+    write_points(out / "heldout.csv", space, heldout, overwrite=True)
     model = heatwalk.fit(space, train, steps=args.train_steps, batch_size=512, seed=args.seed, progress=not args.quiet)
     model.save(out / "model", overwrite=True)
-    samples = model.sample(2000, steps=args.reverse_steps, sampler="predictor_corrector", seed=args.seed,
-                           progress=not args.quiet)
-    write_points(out / "samples.csv", space, samples, overwrite=True)
-    uniform = space.random_uniform(2000, torch.Generator().manual_seed(args.seed + 1))
-    m_model = sample_metrics(space, samples, held_a, held_b)
-    m_unif = sample_metrics(space, uniform, held_a, held_b, bandwidth=m_model["mmd2"]["bandwidth"])
-    report = {"space": space.config(), "n_train": 4000, "n_heldout": [1000, 1000], "seed": args.seed,
-              "fit": model.record, "model_samples": m_model, "uniform_samples": m_unif}
-    write_json(out / "report.json", report)
-    pic = plot_data_and_samples(space, train, samples, out / "torsions.png",
-                                title="lanternfold torsions: data vs heatwalk samples")
-    mm, mu = m_model["mmd2"], m_unif["mmd2"]
-    print(f"  MMD^2 (geodesic Gaussian kernel, bandwidth {mm['bandwidth']:.3f} rad): "
-          f"model {mm['model_vs_a']:.5f}, uniform {mu['model_vs_a']:.5f}, noise floor {mm['noise_floor_b_vs_a']:.5f}")
-    w_model = m_model["wasserstein1_per_angle_rad"]["model_vs_a"]
-    w_unif = m_unif["wasserstein1_per_angle_rad"]["model_vs_a"]
-    print(f"  W1 per angle (rad): model {np.round(w_model, 4).tolist()}, uniform {np.round(w_unif, 4).tolist()}")
-    print(f"  wrote {out / 'samples.csv'}, {pic}, {out / 'report.json'}, {out / 'model'}")
+    result = evaluate(model, heldout, seed=args.seed, sample_steps=args.reverse_steps, sampler="predictor_corrector",
+                      likelihood_points=args.likelihood_points, progress=not args.quiet, command="demo",
+                      data_file=out / "heldout.csv", columns=space.column_names(), model_folder=out / "model",
+                      uniform_baseline=True)
+    write_points(out / "samples.csv", space, result.samples, overwrite=True)
+    written = [out / "samples.csv", *write_report(out, result.report, name="report")]
+    fig = plot(space, train, result.samples, degrees=True, columns=["phi", "psi"],
+               title="lanternfold torsions: density of heatwalk samples, training data over it")
+    written.append(save_figure(fig, out / "torsions.png", overwrite=True))
+    written += write_pictures(out, model, heldout, result, space_picture=False)
+    print(format_table(result.report))
+    print("wrote " + ", ".join(map(str, [*written, out / "model"])))
     return 0

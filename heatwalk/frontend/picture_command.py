@@ -95,11 +95,15 @@ def _read_inputs(args, model):
     return space, read["data"], read["samples"], file_options, columns
 
 
-def _units_and_names(picture, space, options: dict, columns) -> dict:
-    """The picture's ``degrees`` and ``columns`` from the data's units and column names, where it takes them."""
+def picture_units_and_names(space, options: dict, columns) -> dict:
+    """The picture's ``degrees`` and ``columns`` from the data's reading options and column names, where the
+    picture of ``space`` takes them (empty for a space without a picture)."""
+    from heatwalk.frontend.plots import PLOT_KINDS
     from heatwalk.frontend.plots.figures import option_names
 
-    takes = option_names(picture.draw)
+    if getattr(space, "plot_kind", None) not in PLOT_KINDS:
+        return {}
+    takes = option_names(PLOT_KINDS[space.plot_kind].draw)
     out = {}
     if "degrees" in takes and "degrees" in {o.name for o in type(space).file_options}:
         out["degrees"] = bool(options.get("degrees", False))
@@ -145,7 +149,7 @@ def cmd_plot(args) -> int:
     model = heatwalk.load(args.model) if args.model else None
     space, data, samples, reading, columns = _read_inputs(args, model)
     picture = picture_for(space)
-    options = chosen_picture_options(args, space.plot_kind) | _units_and_names(picture, space, reading, columns)
+    options = chosen_picture_options(args, space.plot_kind) | picture_units_and_names(space, reading, columns)
     parts = []
     if model is not None and samples is None:
         if options.get("density") == "samples" or not picture.model_density(space):
