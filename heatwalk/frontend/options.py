@@ -1,4 +1,4 @@
-"""Command-line flags built from what the spaces declare.
+"""Command-line flags built from what the spaces (and the pictures) declare.
 
 Every registered space lists its reading/writing options (``file_options``)
 and space-building options (``build_options``) as
@@ -6,7 +6,11 @@ and space-building options (``build_options``) as
 one flag per option name (``--`` + name with ``-`` for ``_``), with the help
 text of every space that declares it; :func:`chosen_options` collects the
 flags a user set and refuses those the chosen space does not declare. Adding a
-space therefore never touches the command line.
+space therefore never touches the command line. The pictures of
+:data:`heatwalk.frontend.plots.PLOT_KINDS` declare their options the same way
+(``Picture.options``): :func:`add_picture_option_flags` and
+:func:`chosen_picture_options` do for ``heatwalk plot`` what the two above do for
+the spaces.
 """
 
 from __future__ import annotations

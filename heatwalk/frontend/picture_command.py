@@ -168,7 +168,7 @@ def cmd_plot(args) -> int:
         parts.append(f"data {args.data} (n={space.n_points(data)})")
     caption = "; ".join(parts)
     fig = plot(space, data, samples, model=model, size=size, dpi=args.dpi,
-               title=caption if args.title is None else args.title, **options)
+               title="\n".join(parts) if args.title is None else args.title, **options)
     save_figure(fig, out, overwrite=args.overwrite)
     w, h = (round(v * fig.dpi) for v in fig.get_size_inches())
     print(f"wrote {out} ({w}x{h} px, the {space.plot_kind!r} picture of {space!r}): {caption}")
