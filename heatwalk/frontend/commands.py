@@ -226,10 +226,11 @@ def cmd_evaluate(args) -> int:
     options = _file_options(args, model)
     columns = model.record.get("columns")
     x = files_for(model.space).read(args.data, model.space, options, columns=columns)
+    if columns is None and model.space.file_kind == "table":
+        columns = model.space.column_names(**options)
     result = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
                       likelihood_points=args.likelihood_points, progress=not args.quiet, data_file=args.data,
-                      columns=columns or (model.space.column_names(**options) if model.space.file_kind == "table" else None),
-                      model_folder=args.model)
+                      columns=columns, model_folder=args.model)
     written = list(write_report(args.out, result.report))
     if args.per_point:
         written.append(write_per_point(Path(args.out) / "per_point.csv", result))

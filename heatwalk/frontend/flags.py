@@ -118,7 +118,8 @@ def evaluate_flags() -> list[Flag]:
         Flag("sampler", str, "sampler (default: the model's)", choices=_samplers()),
         Flag("likelihood_points", int, "data points whose log-likelihood is computed (0: skip)", default=500,
              metavar="N"),
-        Flag("per_point", bool, "also write each point's log-likelihood (or ELBO) to per_point.csv in the report folder"),
+        Flag("per_point", bool, "also write each point's log-likelihood (or ELBO) to per_point.csv in the report "
+             "folder"),
         Flag("seed", int, "seed of the split and of the sampler", default=0),
         COMMON_DEVICE,
         QUIET,

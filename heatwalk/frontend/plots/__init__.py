@@ -49,7 +49,8 @@ PLOT_KINDS: dict[str, Picture] = {
     "factors": Picture(factors.draw_factors, factors.default_size),
 }
 
-__all__ = ["PLOT_KINDS", "plot", "picture_for", "picture_options", "save_figure", "new_figure", "plot_angles", "plot_directions",
+__all__ = ["PLOT_KINDS", "plot", "picture_for", "picture_options", "save_figure", "new_figure", "plot_angles",
+           "plot_directions",
            "plot_rotations", "plot_compositions", "plot_sequences", "plot_factors", "plot_losses",
            "plot_log_likelihoods", "plot_data_and_samples"]
 
