@@ -10,6 +10,8 @@ Every data set here is invented for these pictures (no real measurements):
 - compositions.png    the invented daily time budget (sleep, work, leisure) of a night-shift crew
 - sequences.png       an invented peptide family of 9–12 residues (padded with "-" to 12) with a conserved
                       motif at positions 4–6
+- factors.png         a product space: lanternfold torsions (T²) with an invented residue class (G, P or
+                      other) that depends on the fold, one picture per factor (data only, no fit)
 - losses.png          the training loss of the torsion model, step by step
 - log_likelihoods.png per-point log-likelihoods of held-out torsions and of uniform angles
 
@@ -31,7 +33,7 @@ import torch
 import heatwalk
 from heatwalk.frontend.demo_data import lanternfold_torsions
 from heatwalk.frontend.plots import plot, plot_log_likelihoods, plot_losses, save_figure
-from heatwalk.spaces import SO3, Categories, Simplex, Sphere, Torus
+from heatwalk.spaces import SO3, Categories, Product, Simplex, Sphere, Torus
 from heatwalk.spaces.simplex import ilr_inverse
 from heatwalk.spaces.so3 import exp_so3
 
@@ -95,6 +97,18 @@ def peptide_family(n: int, rng: np.random.Generator) -> list[str]:
     return out
 
 
+def torsions_with_classes(n: int, rng: np.random.Generator):
+    """Lanternfold torsions and a residue class per point: G (glycine) mostly in the fold at phi > 0,
+    P (proline) mostly in the seam fold, X (other) elsewhere; returns (Product space, (angles, classes))."""
+    space = Product(Torus(2), Categories(3, 1, alphabet="GPX"))
+    angles = torch.as_tensor(lanternfold_torsions(n, seed=11))
+    right, seam = angles[:, 0] > 0, angles[:, 1].abs() > 2.2
+    p = np.where(right.numpy()[:, None], [0.7, 0.05, 0.25], np.where(seam.numpy()[:, None], [0.1, 0.5, 0.4],
+                                                                     [0.1, 0.1, 0.8]))
+    classes = torch.as_tensor([rng.choice(3, p=row) for row in p], dtype=torch.int64)[:, None]
+    return space, (angles, classes)
+
+
 def fit(space, x, steps: int, seed: int, batch_size: int = 256):
     return heatwalk.fit(space, x, steps=steps, batch_size=batch_size, seed=seed, progress=False, threads=1)
 
@@ -150,6 +164,14 @@ def main() -> None:
     samples = seq_model.sample(n_samples, steps=100, seed=4, progress=False)
     done("sequences.png", plot(cats, peptides, samples, pad_symbol=PAD, size=(1100, 720),
                                title="invented peptide family: residue frequencies of data and samples"))
+    product_picture(done, rng)
+
+
+def product_picture(done, rng) -> None:
+    space, data = torsions_with_classes(2000, rng)
+    done("factors.png", plot(space, data, size=(1500, 640),
+                             factor_options=[{"columns": ["phi", "psi"], "color_scale": "log"}, {}],
+                             title="Product(Torus(2), Categories(3, 1)): torsions and residue classes (data)"))
 
 
 if __name__ == "__main__":

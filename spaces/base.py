@@ -221,6 +221,8 @@ class Space(ABC):
     build_options: ClassVar[tuple[Option, ...]] = ()
     #: the picture drawn for it by heatwalk.frontend.plots (a key of PLOT_KINDS), or None
     plot_kind: ClassVar[str | None] = None
+    #: the measure that reported log-likelihoods (nats) are densities against, in words (reports print it)
+    reference_measure: ClassVar[str] = "the space's base measure"
     #: largest admissible diffusion time (finite chains: 1, the prior)
     max_time: ClassVar[float] = math.inf
     #: intrinsic dimension (0 for a finite set)

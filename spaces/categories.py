@@ -79,6 +79,7 @@ class Categories(FiniteStateSpace):
 
     kind = "categories"
     plot_kind = "sequences"
+    reference_measure = "counting measure on sequences"
     file_options = (
         Option("sequence_format", str, "FASTA or one sequence per line", default="auto", choices=SEQUENCE_FORMATS),
         Option("alphabet", str, "the states as a string of symbols (default: those that occur, sorted)"),

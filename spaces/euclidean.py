@@ -46,6 +46,7 @@ class Euclidean(Manifold):
     """
 
     kind = "euclidean"
+    reference_measure = "Lebesgue measure"
     capabilities = frozenset({"coordinates"})
 
     def __init__(self, d: int = 2, t_max: float | None = None, process: str = "brownian"):

@@ -41,6 +41,7 @@ class Product(Space):
 
     kind = "product"
     plot_kind = "factors"
+    reference_measure = "the product of the factors' measures"
     objective_name: ClassVar[str] = "product"
     max_time: ClassVar[float] = 1.0
 

@@ -155,6 +155,7 @@ class Simplex(Manifold):
 
     kind = "simplex"
     plot_kind = "compositions"
+    reference_measure = "Lebesgue measure on the first K−1 parts (as scipy.stats.dirichlet)"
     file_options = (
         Option("zero_replacement", float, "replace parts that are exactly 0 by DELTA (multiplicative replacement)",
                metavar="DELTA", minimum=0, open_minimum=True),

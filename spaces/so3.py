@@ -125,6 +125,7 @@ class SO3(IsotropicKernel, Manifold):
     dim = 3
     ambient_shape = (3, 3)
     plot_kind = "rotations"
+    reference_measure = "bi-invariant volume (rotation by ω has length ω; total 8π²)"
     file_options = (
         Option("rotation_format", str, "rotations as 9 matrix entries (row-major), 4 quaternion components or a "
                "rotation vector", default="matrix", choices=FORMATS),

@@ -45,6 +45,7 @@ class Sphere(IsotropicKernel, Manifold):
     file_options = (Option("lonlat", bool, "S^2 as two columns longitude, latitude in degrees (in that order; "
                            "right ascension and declination the same way)"),)
     plot_kind = "directions"
+    reference_measure = "surface area of the unit sphere (steradians on S²)"
 
     def __init__(self, d: int = 2):
         self.d = check_positive_int("Sphere: d", d)

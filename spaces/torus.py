@@ -33,6 +33,7 @@ class Torus(Manifold):
     file_options = (Option("degrees", bool, "angles are in degrees (default: radians)"),)
     capabilities = frozenset({"angles", "coordinates"})
     plot_kind = "angles"
+    reference_measure = "arc length in each angle (radians; total volume (2π)^n)"
 
     def __init__(self, n: int = 1):
         self.n = check_positive_int("Torus: n", n)

@@ -109,7 +109,7 @@ def test_demo_runs_as_a_command(tmp_path):
     assert r.returncode == 0, r.stderr
     for name in ("samples.csv", "torsions.png", "demo_report.json", "lanternfold_torsions.csv"):
         assert (tmp_path / "demo" / name).is_file()
-    assert "MMD^2" in r.stdout
+    assert "MMD²" in r.stdout and "uniform vs half A" in r.stdout
 
 
 BAD_MANIFOLD_FILES = [
@@ -165,9 +165,10 @@ def test_fit_sample_evaluate_on_the_sphere_with_latlon(tmp_path, capsys):
     import json
 
     rep = json.loads((tmp_path / "ev" / "evaluation.json").read_text())
-    assert rep["log_likelihood"]["n"] == 5 and not rep["log_likelihood"]["is_bound"]
-    assert math.isfinite(rep["log_likelihood"]["mean_nats"]) and rep["mmd2"]["n"] == 100
-    assert (tmp_path / "ev" / "data_vs_samples.png").is_file() and "MMD^2" in out
+    assert rep["likelihood"]["n"] == 5 and not rep["likelihood"]["bound"]
+    assert math.isfinite(rep["likelihood"]["mean_log_likelihood_nats"])
+    assert rep["sample_metrics"]["mmd_squared"]["n"] == 100
+    assert (tmp_path / "ev" / "data_vs_samples.png").is_file() and "MMD²" in out
 
 
 def _fasta(records):
@@ -194,8 +195,10 @@ def test_sequences_fit_sample_evaluate(tmp_path, capsys):
     import json
 
     rep = json.loads((tmp_path / "ev" / "evaluation.json").read_text())
-    assert rep["log_likelihood"]["is_bound"] and "1" in rep["kmer_tv_distance"]
-    assert "bits per token" in out
+    lik = rep["likelihood"]
+    assert lik["bound"] and lik["mean_log_likelihood_nats"] is None and lik["nll_bound_nats"] == -lik["elbo_nats"]
+    assert "1" in rep["sample_metrics"]["kmer_tv_distance"]
+    assert "bits per token" in out and "upper bound on the negative log-likelihood" in out
 
 
 @pytest.mark.parametrize("content, flags, message", [

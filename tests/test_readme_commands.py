@@ -12,10 +12,11 @@ README = Path(__file__).resolve().parent.parent / "README.md"
 
 #: appended to each command so the tour runs in seconds; a later flag overrides an earlier one in argparse
 SMALL = {
-    "demo": ["--train-steps", "30", "--reverse-steps", "5", "--quiet"],
+    "demo": ["--train-steps", "30", "--reverse-steps", "5", "--likelihood-points", "5", "--quiet"],
     "fit": ["--train-steps", "20", "--hidden", "16", "--quiet"],
     "sample": ["--reverse-steps", "5", "--quiet"],
     "evaluate": ["--reverse-steps", "5", "--likelihood-points", "5", "--quiet"],
+    "plot": ["--n-samples", "200", "--reverse-steps", "5", "--grid", "12", "--quiet"],
 }
 
 
@@ -34,12 +35,18 @@ def test_the_tour_has_commands():
 def test_every_tour_command_runs(tmp_path, monkeypatch, capsys):
     monkeypatch.chdir(tmp_path)
     for argv in tour_commands():
-        code = main(argv + SMALL.get(argv[0], []))
+        small = SMALL.get(argv[0], [])
+        if "--losses" in argv or "--data" not in argv and "--model" not in argv:
+            small = [f for f in small if f not in ("--grid", "12")]
+        code = main(argv + small)
         out = capsys.readouterr()
         assert code == 0, (argv, out.err)
         if "--dry-run" in argv:
             assert "train_steps = 20" in out.out and not Path("tour-model-2").exists()
     assert Path("tour-samples.parquet").is_file() and Path("tour-report/evaluation.json").is_file()
+    assert Path("tour-report/per_point.csv").is_file()
+    plots = [c for c in tour_commands() if c[0] == "plot"]
+    assert plots and all(Path(c[c.index("--out") + 1]).stat().st_size > 0 for c in plots)
     import numpy as np
 
     fixed = np.loadtxt("tour-psi-given-phi.csv", delimiter=",", skiprows=1)

@@ -4,6 +4,7 @@
     heatwalk fit DATA --space torus --out MODEL_DIR [--degrees] [--steps N] ...
     heatwalk sample MODEL_DIR --n N --out SAMPLES [--sampler NAME] [--steps N]
     heatwalk evaluate MODEL_DIR DATA --out REPORT_DIR
+    heatwalk plot [--model MODEL_DIR] [--data FILE] [--samples FILE] --out PICTURE.png [--losses]
 
 The reading and writing flags come from the options the spaces declare
 (:mod:`heatwalk.frontend.options`).
@@ -48,6 +49,8 @@ EXAMPLES = {
     "sample": "heatwalk sample torsion-model --n 5000 --out samples.csv --fix phi=-60",
     "evaluate": "heatwalk evaluate torsion-model heldout.csv --out torsion-report",
     "info": "heatwalk info torsion-model",
+    "plot": "heatwalk plot --model torsion-model --data heldout.csv --out torsions.png   (also: --losses, "
+            "--samples FILE, .svg / .pdf)",
 }
 
 
@@ -85,6 +88,13 @@ def _add_torsions_parser(sub) -> None:
     t.set_defaults(func="torsions")
 
 
+def _plot_option_flags(parser) -> None:
+    from heatwalk.frontend.options import add_picture_option_flags, add_space_option_flags
+
+    add_space_option_flags(parser)
+    add_picture_option_flags(parser)
+
+
 def build_parser() -> argparse.ArgumentParser:
     from heatwalk.frontend import flags
     from heatwalk.frontend.options import add_space_option_flags
@@ -97,6 +107,7 @@ def build_parser() -> argparse.ArgumentParser:
     _add_command(sub, "sample", flags.sample_flags(), add_space_option_flags)
     _add_command(sub, "evaluate", flags.evaluate_flags(), add_space_option_flags)
     _add_torsions_parser(sub)
+    _add_command(sub, "plot", flags.plot_flags(), _plot_option_flags)
     i = sub.add_parser("info", help=COMMANDS["info"], epilog=f"example: {EXAMPLES['info']}")
     i.add_argument("model", help="model folder written by 'heatwalk fit'")
     flags.add_flags(i, [flags.DEBUG])
@@ -111,6 +122,7 @@ COMMANDS = {
     "evaluate": "report log-likelihood and sample metrics of a model on data",
     "torsions": "compute backbone (and side-chain) torsion angles of protein structures as a table",
     "info": "print the summary of a saved model: space, data, training, where it was written",
+    "plot": "draw a model, a data file, a samples file (or two of them together), or a model's loss curve",
 }
 
 
@@ -130,10 +142,11 @@ def _top_level_parser() -> argparse.ArgumentParser:
 
 
 def _command(name: str):
-    from heatwalk.frontend import commands, demo
+    from heatwalk.frontend import commands, demo, picture_command
 
     return {"demo": demo.cmd_demo, "fit": commands.cmd_fit, "sample": commands.cmd_sample,
-            "evaluate": commands.cmd_evaluate, "torsions": commands.cmd_torsions, "info": commands.cmd_info}[name]
+            "evaluate": commands.cmd_evaluate, "torsions": commands.cmd_torsions, "info": commands.cmd_info,
+            "plot": picture_command.cmd_plot}[name]
 
 
 def _parse_and_run(argv: list[str]) -> int:

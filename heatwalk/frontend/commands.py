@@ -242,9 +242,9 @@ def cmd_sample(args) -> int:
 # ----- evaluate, torsions ------------------------------------------------------------------------------
 def cmd_evaluate(args) -> int:
     import heatwalk
-    from heatwalk.frontend.evaluation import evaluate, format_table, write_per_point, write_report
+    from heatwalk.frontend.evaluation import evaluate, format_table, write_per_point, write_pictures, write_report
     from heatwalk.frontend.flags import evaluate_flags
-    from heatwalk.frontend.plots import plot_data_and_samples
+    from heatwalk.frontend.picture_command import picture_units_and_names
     from heatwalk.io.atomic import atomic_dir
     from heatwalk.io.output_paths import check_output_path
     from heatwalk.io.points import files_for
@@ -253,28 +253,25 @@ def cmd_evaluate(args) -> int:
     _require(args, "out")
     inputs = {"model": args.model, "data": args.data}
     out = check_output_path(args.out, kind="folder", overwrite=args.overwrite, inputs=inputs)
-    if args.per_point:
-        check_output_path(args.per_point, kind="file", overwrite=args.overwrite,
-                          inputs={**inputs, "report folder": args.out})
-        if args.likelihood_points == 0:
-            raise InputError("--per-point writes the log-likelihoods of --likelihood-points points; it is 0",
-                             field="per_point")
+    if args.per_point and args.likelihood_points == 0:
+        raise InputError("--per-point needs log-likelihoods: --likelihood-points must be > 0", field="per_point")
     model = heatwalk.load(args.model)
-    x = files_for(model.space).read(args.data, model.space, _file_options(args, model),
-                                    columns=model.record.get("columns"))
-    report, samples = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
-                               likelihood_points=args.likelihood_points, progress=not args.quiet, device=device)
-    report["model"] = str(Path(args.model).resolve())
-    report["data_file"] = str(Path(args.data).resolve())
+    options = _file_options(args, model)
+    columns = model.record.get("columns")
+    x = files_for(model.space).read(args.data, model.space, options, columns=columns)
+    if columns is None and model.space.file_kind == "table":
+        columns = model.space.column_names(**options)
+    result = evaluate(model, x, seed=args.seed, sample_steps=args.reverse_steps, sampler=args.sampler,
+                      likelihood_points=args.likelihood_points, progress=not args.quiet, data_file=args.data,
+                      columns=columns, model_folder=args.model, device=device)
     with atomic_dir(out, overwrite=args.overwrite) as folder:  # the report appears whole, or not at all
-        names = write_report(folder, report)
-        pic = plot_data_and_samples(model.space, x, samples, folder / "data_vs_samples.png",
-                                    title="data vs samples")
-    written = [str(out / p.name) for p in (*names, *([pic] if pic else []))]
-    if args.per_point:
-        written.append(str(write_per_point(args.per_point, report, overwrite=args.overwrite)))
-    print(format_table(report))
-    print(f"wrote {', '.join(written)}" + ("" if pic else " (no picture for this space)"))
+        written = list(write_report(folder, result.report))
+        if args.per_point:
+            written.append(write_per_point(folder / "per_point.csv", result))
+        written += write_pictures(folder, model, x, result,
+                                  picture_units_and_names(model.space, options, columns))
+    print(format_table(result.report))
+    print("wrote " + ", ".join(str(out / p.name) for p in written))
     return 0
 
 

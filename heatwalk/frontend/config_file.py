@@ -19,6 +19,8 @@ from heatwalk.errors import InputError
 
 #: keys that are not saved in the resolved configuration (they describe this invocation, not the fit)
 NOT_SAVED = ("config", "dry_run", "overwrite", "quiet")
+#: keys whose value is a list in the file and a comma-separated string on the command line
+LIST_KEYS = ("columns",)
 
 
 def read_config(path) -> dict:
@@ -85,5 +87,7 @@ def resolved_toml(args, names) -> str:
         value = getattr(args, name, None)
         if value is None or name in NOT_SAVED or value is False and name not in ("resume", "inpainting"):
             continue
+        if name in LIST_KEYS and isinstance(value, str):  # saved as the list the file's reader expects
+            value = [v.strip() for v in value.split(",")]
         lines.append(f"{name} = {_toml_value(value)}")
     return "\n".join(lines) + "\n"

@@ -2,24 +2,24 @@
 
 Everything goes into one folder (``--out``, default ``demo-output``), written under a temporary name and
 renamed into place when the demo is done: the training data, the held-out data, the model folder, the
-samples, the picture and ``demo_report.json``. An existing folder is replaced only with ``--overwrite``,
-and only when it is a demo folder, a model or report folder, or empty.
+samples, the pictures and the report (demo_report.json, demo_report.txt). The report follows the one
+report schema of ``heatwalk evaluate`` (:mod:`heatwalk.frontend.report_schema`), on the 2,000 held-out
+pairs, with the metrics of uniform angles beside those of the model's samples
+(``sample_metrics.uniform_baseline``). An existing folder is replaced only with ``--overwrite``, and only
+when it is a demo folder, a model or report folder, or empty.
 """
 
 from __future__ import annotations
 
 
 def cmd_demo(args) -> int:
-    import numpy as np
-    import torch
-
     import heatwalk
-    from heatwalk.frontend.demo_data import lanternfold_torsions
     from heatwalk.frontend.commands import settle
+    from heatwalk.frontend.demo_data import lanternfold_torsions
+    from heatwalk.frontend.evaluation import evaluate, format_table, write_pictures, write_report
     from heatwalk.frontend.flags import demo_flags
-    from heatwalk.frontend.evaluation import sample_metrics
-    from heatwalk.frontend.plots import plot_data_and_samples
-    from heatwalk.io.atomic import DEMO_REPORT, atomic_dir, write_json
+    from heatwalk.frontend.plots import plot, save_figure
+    from heatwalk.io.atomic import DEMO_REPORT, atomic_dir
     from heatwalk.io.output_paths import check_output_path
     from heatwalk.io.tables import write_points
     from heatwalk.spaces import Torus
@@ -28,31 +28,24 @@ def cmd_demo(args) -> int:
     out = check_output_path(args.out, kind="folder", overwrite=args.overwrite)
     space = Torus(2)
     data = space.validate(lanternfold_torsions(6000, seed=args.seed))
-    train, held_a, held_b = data[:4000], data[4000:5000], data[5000:]
+    train, heldout = data[:4000], data[4000:]
     print("demo: fitting backbone torsions (phi, psi) of the invented 'lanternfold' peptide family on T^2")
     with atomic_dir(out, overwrite=args.overwrite) as folder:  # the demo's folder appears whole, or not at all
         write_points(folder / "lanternfold_torsions.csv", space, train)
-        write_points(folder / "heldout.csv", space, data[4000:])
+        write_points(folder / "heldout.csv", space, heldout)
         model = heatwalk.fit(space, train, steps=args.train_steps, batch_size=512, seed=args.seed,
                              progress=not args.quiet)
         model.save(folder / "model")
-        samples = model.sample(2000, steps=args.reverse_steps, sampler="predictor_corrector", seed=args.seed,
-                               progress=not args.quiet)
-        write_points(folder / "samples.csv", space, samples)
-        uniform = space.random_uniform(2000, torch.Generator().manual_seed(args.seed + 1))
-        m_model = sample_metrics(space, samples, held_a, held_b)
-        m_unif = sample_metrics(space, uniform, held_a, held_b, bandwidth=m_model["mmd2"]["bandwidth"])
-        report = {"space": space.config(), "n_train": 4000, "n_heldout": [1000, 1000], "seed": args.seed,
-                  "fit": model.record, "model_samples": m_model, "uniform_samples": m_unif}
-        write_json(folder / DEMO_REPORT, report)
-        pic = plot_data_and_samples(space, train, samples, folder / "torsions.png",
-                                    title="lanternfold torsions: data vs heatwalk samples")
-    mm, mu = m_model["mmd2"], m_unif["mmd2"]
-    print(f"  MMD^2 (geodesic Gaussian kernel, bandwidth {mm['bandwidth']:.3f} rad): "
-          f"model {mm['model_vs_a']:.5f}, uniform {mu['model_vs_a']:.5f}, noise floor {mm['noise_floor_b_vs_a']:.5f}")
-    w_model = m_model["wasserstein1_per_angle_rad"]["model_vs_a"]
-    w_unif = m_unif["wasserstein1_per_angle_rad"]["model_vs_a"]
-    print(f"  W1 per angle (rad): model {np.round(w_model, 4).tolist()}, uniform {np.round(w_unif, 4).tolist()}")
-    picture = f"{out / pic.name}, " if pic else ""
-    print(f"  wrote {out / 'samples.csv'}, {picture}{out / DEMO_REPORT}, {out / 'model'}")
+        result = evaluate(model, heldout, seed=args.seed, sample_steps=args.reverse_steps,
+                          sampler="predictor_corrector", likelihood_points=args.likelihood_points,
+                          progress=not args.quiet, command="demo", data_file=out / "heldout.csv",
+                          columns=space.column_names(), model_folder=out / "model", uniform_baseline=True)
+        write_points(folder / "samples.csv", space, result.samples)
+        written = [folder / "samples.csv", *write_report(folder, result.report, name=DEMO_REPORT[:-len(".json")])]
+        fig = plot(space, train, result.samples, degrees=True, columns=["phi", "psi"],
+                   title="lanternfold torsions: density of heatwalk samples, training data over it")
+        written.append(save_figure(fig, folder / "torsions.png", overwrite=True))
+        written += write_pictures(folder, model, heldout, result, space_picture=False)
+    print(format_table(result.report))
+    print("wrote " + ", ".join(str(out / p.name) for p in [*written, out / "model"]))
     return 0

@@ -47,6 +47,8 @@ class Objective(ABC):
     default_sampler: ClassVar[str]
     #: True when ``log_prob`` returns a lower bound (an ELBO) rather than the log-likelihood
     likelihood_is_bound: ClassVar[bool] = False
+    #: how ``log_prob`` is computed, in words (reports print it)
+    likelihood_method: ClassVar[str] = ""
 
     def __init__(self, space, schedule: TimeSchedule, classes: list | None = None, label_dropout: float = 0.1,
                  inpainting: bool = False):

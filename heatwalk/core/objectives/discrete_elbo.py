@@ -99,6 +99,7 @@ class DiscreteELBO(Objective):
     field_kind = "x0_probabilities"
     default_sampler = "ancestral"
     likelihood_is_bound = True
+    likelihood_method = "continuous-time ELBO (Monte Carlo over diffusion times), a lower bound on log p"
 
     def __init__(self, space, schedule: TimeSchedule, ce_weight: float = 0.0, recon_fraction: float = 0.25,
                  classes=None, label_dropout: float = 0.1, inpainting: bool = False, integrand: str = "auto"):

@@ -71,6 +71,9 @@ class ProductObjective(Objective):
     #: whole factors are fixed by holding them known, as the network was trained to condition on them
     default_given_method = "trained"
 
+    likelihood_method = ("probability-flow ODE of the manifold factors plus the ELBO of the finite factors "
+                         "given them (a lower bound when a factor is finite)")
+
     @property
     def likelihood_is_bound(self) -> bool:  # a product with a finite factor reports an ELBO-based bound
         return not all(self.space.is_manifold)

@@ -31,6 +31,7 @@ class ScoreMatching(Objective):
     """
 
     name = "score_matching"
+    likelihood_method = "probability-flow ODE (exact divergence; Hutchinson's estimator above 3 dimensions)"
     field_kind = "score"
     default_sampler = "geodesic_random_walk"
 

@@ -39,17 +39,25 @@ from heatwalk.frontend.plots.sequences import plot_sequences
 
 #: plot_kind -> the picture drawn for spaces that declare it
 PLOT_KINDS: dict[str, Picture] = {
-    "angles": Picture(angles.draw_angles, angles.default_size),
-    "directions": Picture(directions.draw_directions, directions.default_size),
-    "rotations": Picture(rotations.draw_rotations, rotations.default_size),
-    "compositions": Picture(compositions.draw_compositions, compositions.default_size),
-    "sequences": Picture(sequences.draw_sequences, sequences.default_size),
+    "angles": Picture(angles.draw_angles, angles.default_size, angles.OPTIONS, angles.shows_model_density),
+    "directions": Picture(directions.draw_directions, directions.default_size, directions.OPTIONS,
+                          directions.shows_model_density),
+    "rotations": Picture(rotations.draw_rotations, rotations.default_size, rotations.OPTIONS),
+    "compositions": Picture(compositions.draw_compositions, compositions.default_size, compositions.OPTIONS,
+                            compositions.shows_model_density),
+    "sequences": Picture(sequences.draw_sequences, sequences.default_size, sequences.OPTIONS),
     "factors": Picture(factors.draw_factors, factors.default_size),
 }
 
-__all__ = ["PLOT_KINDS", "plot", "picture_options", "save_figure", "new_figure", "plot_angles", "plot_directions",
+__all__ = ["PLOT_KINDS", "plot", "picture_for", "picture_options", "save_figure", "new_figure", "plot_angles",
+           "plot_directions",
            "plot_rotations", "plot_compositions", "plot_sequences", "plot_factors", "plot_losses",
            "plot_log_likelihoods", "plot_data_and_samples"]
+
+
+def picture_for(space) -> Picture:
+    """The :class:`Picture` ``space`` declares (``space.plot_kind`` in :data:`PLOT_KINDS`); InputError if none."""
+    return _entry(space)
 
 
 def _entry(space) -> Picture:

@@ -29,11 +29,31 @@ import torch
 
 from heatwalk.checks import check_int, check_number
 from heatwalk.frontend.plots.figures import (
-    DATA_COLOUR, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density, density_cmap,
+    COLOR_SCALE_OPTION, DATA_COLOUR, DENSITY_OPTION, MAX_POINTS_OPTION, OVERLAY_COLOUR, SAMPLES_COLOUR,
+    check_model_space, check_names, choose_density, density_cmap,
     density_norm, log_prob_on, points, render, spread,
 )
+from heatwalk.spaces.base import Option
 
 _RADIAN_TICKS = ([-math.pi, -math.pi / 2, 0.0, math.pi / 2, math.pi], ["−π", "−π/2", "0", "π/2", "π"])
+
+
+#: the options the command line offers (``columns`` and ``degrees`` follow the data file's columns and units)
+OPTIONS = (
+    DENSITY_OPTION,
+    Option("grid", int, "cells per angle of the model's density grid (log_prob at grid^n points)", default=64,
+           metavar="N"),
+    Option("bins", int, "histogram bins per angle of a samples or data density", default=72, metavar="N"),
+    Option("smoothing", float, "standard deviation (bins) of the wrapped Gaussian smoothing of a histogram",
+           default=1.5, metavar="BINS"),
+    COLOR_SCALE_OPTION,
+    MAX_POINTS_OPTION,
+)
+
+
+def shows_model_density(space) -> bool:
+    """A grid of the joint law gives the density of one or two angles, not a pair's marginal for n ≥ 3."""
+    return space.n <= 2
 
 
 def default_size(space) -> tuple[int, int]:

@@ -26,13 +26,33 @@ import torch
 from heatwalk.checks import check_int
 from heatwalk.errors import InputError
 from heatwalk.frontend.plots.figures import (
-    DATA_COLOUR, OVERLAY_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, choose_density, density_cmap,
+    COLOR_SCALE_OPTION, DATA_COLOUR, DENSITY_OPTION, MAX_POINTS_OPTION, OVERLAY_COLOUR, SAMPLES_COLOUR,
+    check_model_space, check_names, choose_density, density_cmap,
     density_norm, log_prob_on, points, render, spread,
 )
+from heatwalk.spaces.base import Option
 
 #: the most log-ratio panels drawn without an explicit ``pairs``
 MAX_PAIRS = 28
 _H = math.sqrt(3) / 2
+
+
+#: the options the command line offers (``columns`` follows the data file's columns)
+OPTIONS = (
+    DENSITY_OPTION,
+    Option("grid", int, "pieces of each side of the ternary diagram (grid^2 small triangles)", default=24,
+           metavar="N"),
+    Option("pairs", str, "log-ratio panels for K != 3 parts, e.g. 0/1,0/2 or food/fuel (indices or column names)",
+           metavar="I/J,..."),
+    Option("bins", int, "bins of each log-ratio histogram", default=40, metavar="N"),
+    COLOR_SCALE_OPTION,
+    MAX_POINTS_OPTION,
+)
+
+
+def shows_model_density(space) -> bool:
+    """The ternary diagram (K = 3) shows a model's density; the log-ratio panels show point sets."""
+    return space.K == 3
 
 
 def default_size(space) -> tuple[int, int]:
@@ -112,6 +132,10 @@ def _pairs(pairs, names) -> list[tuple[int, int]]:
             raise InputError(f"{K} parts give {len(every)} log-ratio panels (more than {MAX_PAIRS}); choose some "
                              "with pairs=[(i, j), ...] (indices or part names)", field="pairs")
         return every
+    if isinstance(pairs, str):  # "0/1,0/2" or "food/fuel" (the command line's spelling)
+        pairs = [tuple(int(v) if v.strip().isdigit() else v.strip() for v in p.split("/")) for p in pairs.split(",")]
+        if any(len(p) != 2 for p in pairs):
+            raise InputError(f"pairs: expected I/J,I/J,... (part indices or names), got {pairs!r}", field="pairs")
     out = []
     for p in pairs:
         try:

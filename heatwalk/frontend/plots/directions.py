@@ -23,11 +23,27 @@ import torch
 from heatwalk.checks import check_choice, check_int, check_number
 from heatwalk.errors import InputError
 from heatwalk.frontend.plots.figures import (
-    OVERLAY_COLOUR, density_cmap, check_model_space, choose_density, density_norm, log_prob_on, points, render,
-    spread,
+    COLOR_SCALE_OPTION, DENSITY_OPTION, MAX_POINTS_OPTION, OVERLAY_COLOUR, check_model_space, choose_density,
+    density_cmap, density_norm, log_prob_on, points, render, spread,
 )
+from heatwalk.spaces.base import Option
 
 PROJECTIONS = ("mollweide", "hammer")
+PROJECTION_OPTION = Option("projection", str, "equal-area map projection", default="mollweide", choices=PROJECTIONS)
+#: the options the command line offers
+OPTIONS = (
+    DENSITY_OPTION,
+    PROJECTION_OPTION,
+    Option("grid", int, "longitude cells of the model's density grid (half as many of latitude)", default=96,
+           metavar="N"),
+    Option("bandwidth", float, "kernel width (degrees) of a samples or data density", default=6.0, metavar="DEG"),
+    COLOR_SCALE_OPTION,
+    MAX_POINTS_OPTION,
+)
+
+
+def shows_model_density(space) -> bool:
+    return True
 
 
 def default_size(space) -> tuple[int, int]:

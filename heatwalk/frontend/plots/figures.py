@@ -22,6 +22,7 @@ import torch
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.errors import InputError
 from heatwalk.io.atomic import atomic_path
+from heatwalk.spaces.base import Option
 
 #: file extensions save_figure writes, and matplotlib's name of each format
 FORMATS = {".png": "png", ".svg": "svg", ".pdf": "pdf"}
@@ -159,16 +160,37 @@ def check_model_space(model, space) -> None:
         raise InputError(f"model: fitted on {model.space!r}, but the picture is of {space!r}", field="model")
 
 
+def never(space) -> bool:
+    return False
+
+
 @dataclass(frozen=True)
 class Picture:
-    """A kind of picture: its draw function and its default size in pixels for a space."""
+    """A kind of picture: its draw function, its default size in pixels for a space, and its declarations.
+
+    ``options``: the draw function's options that the command line offers (``heatwalk plot`` builds
+    one flag per name, as for the spaces' options), as :class:`heatwalk.spaces.Option` objects.
+    ``model_density(space)``: whether the picture can show a model's own density (``density="model"``,
+    from ``log_prob`` on a grid) for ``space``; where it cannot, ``heatwalk plot`` draws samples from
+    the model instead.
+    """
 
     draw: Callable
     default_size: Callable
+    options: tuple = ()
+    model_density: Callable = never
 
 
 #: colour scales of the density heat maps
 COLOR_SCALES = ("linear", "log")
+
+# options several pictures share (each picture lists the ones it takes in its module's OPTIONS)
+DENSITY_OPTION = Option("density", str, "where the heat map's density comes from (default: samples if given, else "
+                        "the model, else the data)", choices=DENSITY_SOURCES)
+COLOR_SCALE_OPTION = Option("color_scale", str, "colour scale of the density: linear, or log (four decades "
+                            "below the peak)", default="linear", choices=COLOR_SCALES)
+MAX_POINTS_OPTION = Option("max_points", int, "data points drawn (spread evenly over the file)", default=3000,
+                           metavar="N")
 #: a logarithmic colour scale spans at most this ratio below its largest value
 LOG_RANGE = 1e4
 

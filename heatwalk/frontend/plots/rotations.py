@@ -20,13 +20,23 @@ import torch
 
 from heatwalk.checks import check_choice, check_int
 from heatwalk.errors import InputError
-from heatwalk.frontend.plots.directions import PROJECTIONS, map_axes
+from heatwalk.frontend.plots.directions import PROJECTION_OPTION, PROJECTIONS, map_axes
 from heatwalk.frontend.plots.figures import (
-    DATA_COLOUR, REFERENCE_COLOUR, SAMPLES_COLOUR, check_model_space, points, render, spread,
+    MAX_POINTS_OPTION, DATA_COLOUR, REFERENCE_COLOUR, SAMPLES_COLOUR, check_model_space, points, render, spread,
 )
+from heatwalk.spaces.base import Option
 from heatwalk.spaces.so3 import matrix_to_quaternion
 
 ANGLE_CMAP = "viridis"
+
+
+#: the options the command line offers (``degrees`` follows the data file's units); no model density: the
+#: picture shows point sets, so ``heatwalk plot`` draws samples from a model
+OPTIONS = (
+    PROJECTION_OPTION,
+    Option("bins", int, "bins of the rotation-angle histogram", default=36, metavar="N"),
+    MAX_POINTS_OPTION,
+)
 
 
 def default_size(space) -> tuple[int, int]:

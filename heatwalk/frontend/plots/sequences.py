@@ -18,8 +18,16 @@ import torch
 
 from heatwalk.errors import InputError
 from heatwalk.frontend.plots.figures import DATA_COLOUR, SAMPLES_COLOUR, check_model_space, points, render
+from heatwalk.spaces.base import Option
 
 FREQUENCY_CMAP, DIFFERENCE_CMAP = "Blues", "RdBu_r"
+
+
+#: the options the command line offers; no model density: ``heatwalk plot`` draws samples from a model
+OPTIONS = (
+    Option("pad_symbol", str, "a symbol whose trailing run ends a sequence (padding, not counted in lengths)",
+           metavar="SYMBOL"),
+)
 
 
 def default_size(space) -> tuple[int, int]:
