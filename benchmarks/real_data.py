@@ -66,6 +66,7 @@ import torch
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import heatwalk  # noqa: E402
+import baseline_cache  # noqa: E402
 import mixtures  # noqa: E402
 import permutation_mmd  # noqa: E402
 import real_datasets  # noqa: E402
@@ -149,10 +150,11 @@ def paired(nll_a, nll_b, groups):
     return out
 
 
-def run_heatwalk(name, space, train, held, cfg, progress):
+def run_heatwalk(name, space, train, held, cfg, progress, options=None):
     kw = {"seed": SEED, "progress": progress}
     if cfg["steps"] is not None:
         kw["steps"] = cfg["steps"]
+    kw.update(options or {})
     model = heatwalk.fit(space, train, **kw)
     t0 = time.perf_counter()
     out = model.log_prob(held, **LOG_PROB_OPTIONS.get(name, {}))
@@ -162,18 +164,35 @@ def run_heatwalk(name, space, train, held, cfg, progress):
     return {"logq": out["log_prob"].numpy(), "samples": samples, "fit_seconds": model.record["train_seconds"],
             "log_prob_seconds": lp_seconds, "sample_seconds": time.perf_counter() - t0,
             "steps": model.record["steps"], "log_prob_options": LOG_PROB_OPTIONS.get(name, {}),
-            "divergence": out.get("divergence"), "final_loss": model.record["final_loss"]}
+            "divergence": out.get("divergence"), "final_loss": model.record.get("mean_loss_last_100_steps"),
+            "record": {k: v for k, v in model.record.items() if k in ("levers", "validation", "steps", "lr")},
+            "network": model.network.config()}
 
 
-def run_mixture(name, space, train, held, cfg):
+def run_mixture(name, space, train, held, cfg, reuse=None):
+    """The EM mixture chosen by BIC. ``reuse`` (None or a dict with the cache key and a saved full run to replay
+    from, see ``baseline_cache``): a cached result is returned as it was stored (with its MMD); a miss replays the
+    saved run's chosen k when it has this data set, else runs the whole BIC search."""
+    if reuse is not None and reuse["key"] in reuse["cache"]:
+        entry = dict(reuse["cache"][reuse["key"]])
+        return {**entry, "logq": np.asarray(entry.pop("logq")), "baseline": "cached"}
     fam, to, back, extra = mixture_family(name, space)
+    saved = None if reuse is None else reuse.get("saved_row")
     t0 = time.perf_counter()
-    fit = mixtures.fit_by_bic(fam, to(train), cfg["k_max"], SEED, restarts=cfg["restarts"])
-    seconds = time.perf_counter() - t0
+    if saved is not None:
+        k_star = saved["mixture"]["k"]
+        table = saved["mixture"]["bic_table"]
+        fit = baseline_cache.replay_chosen_k(fam, to(train), cfg["k_max"], SEED, cfg["restarts"], k_star,
+                                             table[k_star - 1]["loglik"])
+        fit["bic_table"] = table
+        seconds, how = saved["mixture"]["fit_seconds"], "replayed chosen k of the saved full run (its fit seconds)"
+    else:
+        fit = mixtures.fit_by_bic(fam, to(train), cfg["k_max"], SEED, restarts=cfg["restarts"])
+        seconds, how = time.perf_counter() - t0, "fitted"
     logq = mixtures.mixture_log_prob(fam, fit, to(held)) + extra(held)
     samples = back(mixtures.mixture_sample(fam, fit, cfg["n_mmd"], SEED + 7))
     return {"logq": logq, "samples": samples, "fit_seconds": seconds, "k": int(fit["k"]),
-            "family": type(fam).__name__, "bic_table": fit["bic_table"]}
+            "family": type(fam).__name__, "bic_table": fit["bic_table"], "baseline": how}
 
 
 def run_euclidean(name, space, train, cfg, progress):
@@ -197,17 +216,26 @@ def guarded(what, fn, *args):
         return {"error": f"{what}: {type(e).__name__}: {e}"}
 
 
-def run_dataset(name, cfg, progress):
+def run_dataset(name, cfg, progress, options=None, euclidean=True, reuse=None, fit_heatwalk=True):
+    """One row of the table. ``options``: extra keyword arguments of heatwalk's fit (an ablation variant);
+    ``euclidean``: fit the Euclidean diffusion too; ``reuse``: None, or {"saved": a saved full run's rows by data
+    set name} to take the mixture from the baseline cache (module docstring)."""
     t_start = time.perf_counter()
     space = make_space(name)
     data = real_datasets.load(name, space)
     train, _ = subsample(data["train"], cfg["train_max"], SEED + 1)
     held, groups = subsample(data["heldout"], cfg["heldout_max"], SEED + 2, data["groups"])
     row = {"data": name, "label": LABELS[name], "info": {k: v for k, v in data["info"].items() if k != "resids"},
-           "n_train": int(train.shape[0]), "n_heldout": int(held.shape[0])}
-    hw = guarded("heatwalk", run_heatwalk, name, space, train, held, cfg, progress)
-    mx = guarded("mixture", run_mixture, name, space, train, held, cfg)
-    eu = guarded("euclidean", run_euclidean, name, space, train, cfg, progress)
+           "n_train": int(train.shape[0]), "n_heldout": int(held.shape[0]), "heatwalk_options": options or {}}
+    mix_reuse = None
+    if reuse is not None:
+        key = baseline_cache.baseline_key(name, train, held, cfg, SEED)
+        mix_reuse = {"key": key, "cache": baseline_cache.load(), "saved_row": reuse["saved"].get(name)}
+    hw = (guarded("heatwalk", run_heatwalk, name, space, train, held, cfg, progress, options) if fit_heatwalk
+          else {"error": "heatwalk: not run (--no-heatwalk)"})
+    mx = guarded("mixture", run_mixture, name, space, train, held, cfg, mix_reuse)
+    eu = (guarded("euclidean", run_euclidean, name, space, train, cfg, progress) if euclidean
+          else {"error": "euclidean: not run (--no-euclidean)"})
 
     held_a, _ = subsample(held, cfg["n_mmd"], SEED + 3)
     ref, _ = subsample(train, cfg["n_mmd"], SEED + 4)
@@ -215,12 +243,15 @@ def run_dataset(name, cfg, progress):
     row["mmd_bandwidth"] = bw
     row["train_reference"] = {"mmd": permutation_mmd.mmd_z(space, ref, held_a, bw, cfg["n_perm"], SEED + 8)}
     for key, res in (("heatwalk", hw), ("mixture", mx), ("euclidean", eu)):
-        if "error" not in res:
+        if "error" not in res and "samples" in res:
             res["mmd"] = permutation_mmd.mmd_z(space, res.pop("samples")[:cfg["n_mmd"]], held_a, bw, cfg["n_perm"],
                                                SEED + 8)
         if "logq" in res:
             res["nll"] = nll_summary(res["logq"])
         row[key] = res
+    if mix_reuse is not None and "logq" in mx and mx.get("baseline") != "cached":
+        baseline_cache.store(mix_reuse["key"], {k: (v.tolist() if k == "logq" else v) for k, v in mx.items()
+                                                if k != "baseline"})
     if "logq" in hw and "logq" in mx:
         row["paired_heatwalk_minus_mixture"] = paired(-hw["logq"], -mx["logq"], groups)
     for res in (hw, mx):
@@ -292,6 +323,35 @@ def write_json(path: Path, payload: dict):
     os.replace(tmp, path)
 
 
+def parse_options(pairs):
+    """``["a=1", "net.hidden=512"]`` -> ``{"a": 1, "net": {"hidden": 512}}`` (values read as JSON, else strings)."""
+    out = {}
+    for pair in pairs:
+        key, sep, text = pair.partition("=")
+        if not sep or not key:
+            raise SystemExit(f"--heatwalk-option {pair!r}: expected KEY=VALUE")
+        try:
+            value = json.loads(text)
+        except json.JSONDecodeError:
+            value = text
+        *path, last = key.split(".")
+        node = out
+        for part in path:
+            node = node.setdefault(part, {})
+        node[last] = value
+    return out
+
+
+def saved_rows(path: Path, cfg: dict) -> dict:
+    """Rows (by data set) of a saved run made with this mode's baseline settings, for replaying BIC choices."""
+    if not path.is_file():
+        return {}
+    saved = json.loads(path.read_text())
+    if any(saved.get("settings", {}).get(k) != cfg[k] for k in baseline_cache.BASELINE_SETTINGS):
+        return {}
+    return {r["data"]: r for r in saved["rows"] if "k" in r.get("mixture", {})}
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="subsampled data and 300 fit steps (a few minutes)")
@@ -301,6 +361,16 @@ def main(argv=None):
     ap.add_argument("--progress", action="store_true", help="show training progress bars")
     ap.add_argument("--show", nargs="+", type=Path, default=None,
                     help="print the table of saved result files (rows of several runs together) and exit")
+    ap.add_argument("--heatwalk-option", action="append", default=[], metavar="KEY=VALUE",
+                    help="extra keyword argument of heatwalk.fit for an ablation variant (VALUE read as JSON, else a "
+                         "string; KEY a.b sets entry b of the dict argument a, e.g. network.hidden=512); repeatable")
+    ap.add_argument("--no-euclidean", action="store_true", help="skip the Euclidean-embedding diffusion")
+    ap.add_argument("--no-heatwalk", action="store_true", help="skip heatwalk (e.g. to fill the baseline cache)")
+    ap.add_argument("--reuse-baselines", action="store_true",
+                    help="take the mixture from benchmarks/results/real_data_baselines.json when its key (data, split, "
+                         "settings, seed, mixtures.py) matches; on a miss replay the chosen k of --replay-from, or fit")
+    ap.add_argument("--replay-from", type=Path, default=RESULTS / "real_data.json",
+                    help="saved run whose BIC choices a cache miss replays (used only if its settings are this mode's)")
     args = ap.parse_args(argv)
     torch.set_num_threads(1)
     mode = "quick" if args.quick else "full"
@@ -310,13 +380,17 @@ def main(argv=None):
         rows = [r for f in args.show for r in json.loads(f.read_text())["rows"]]
         print(format_table(sorted(rows, key=lambda r: ORDER.index(r["data"]))))
         return
+    options = parse_options(args.heatwalk_option)
+    reuse = {"saved": saved_rows(args.replay_from, cfg)} if args.reuse_baselines else None
     rows, t0 = [], time.perf_counter()
     names = [n for n in ORDER if not args.only or n in args.only]
     for name in names:
-        rows.append(run_dataset(name, cfg, args.progress))
+        rows.append(run_dataset(name, cfg, args.progress, options, not args.no_euclidean, reuse,
+                                not args.no_heatwalk))
         print(f"[{name}] done in {rows[-1]['seconds']:.0f} s", file=sys.stderr, flush=True)
         write_json(out, {"mode": mode, "complete": len(rows) == len(names), "settings": cfg,
-                         "log_prob_options": LOG_PROB_OPTIONS, "seed": SEED, "versions": versions(),
+                         "log_prob_options": LOG_PROB_OPTIONS, "seed": SEED,
+                         "heatwalk_options": options, "reuse_baselines": bool(args.reuse_baselines), "versions": versions(),
                          "total_seconds": time.perf_counter() - t0, "rows": rows})
     total = time.perf_counter() - t0
     note = "" if mode == "full" else (" — QUICK: subsampled to <= 3000 train / 400 held-out points, 300 fit "

@@ -47,9 +47,14 @@ class Objective(ABC):
     default_sampler: ClassVar[str]
     #: True when ``log_prob`` returns a lower bound (an ELBO) rather than the log-likelihood
     likelihood_is_bound: ClassVar[bool] = False
+    #: True when the loss applies the importance weights of a tilted time density (``TimeSchedule.tilt``)
+    supports_time_tilt: ClassVar[bool] = False
 
     def __init__(self, space, schedule: TimeSchedule, classes: list | None = None, label_dropout: float = 0.1,
                  inpainting: bool = False):
+        if getattr(schedule, "tilt", 0.0) != 0.0 and not self.supports_time_tilt:
+            raise InputError(f"time_tilt: the {self.name} objective draws its times without importance weights; "
+                             f"time_tilt must be 0 for it, got {schedule.tilt}", field="time_tilt")
         self.space = space
         self.schedule = schedule
         self.classes = None if classes is None else list(classes)
