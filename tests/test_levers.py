@@ -73,7 +73,9 @@ def test_fourier_features_are_sin_and_cos_of_fixed_gaussian_frequencies(tmp_path
     model = heatwalk.fit(SPACE, _data(n), steps=3, **{**SMALL, "network": {"hidden": 16, "depth": 2,
                                                                            "fourier_features": 256}})
     net = model.network
-    scale = n ** (1 / (2 + 4))  # the rule n^(1/(d+4)) of heatwalk.core.sizing, d = 2 for T²
+    # the rule n^(1/(d+4)) / spread of heatwalk.core.sizing, d = 2 for T², spread of the (cos, sin) embedding
+    spread = torch.cat([torch.cos(_data(n)), torch.sin(_data(n))], dim=1).var(dim=0).mean().sqrt().item()
+    scale = n ** (1 / (2 + 4)) / spread
     assert net.config()["fourier_scale"] == pytest.approx(scale, rel=1e-12)
     # 512 N(0, scale²) entries: the sample standard deviation is within 15% (about 5 of its standard errors
     # 1/sqrt(2·512) ≈ 3%; common-practice normal approximation) of the scale

@@ -149,7 +149,7 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
         lowest one (early model choice; the record's "validation" entry has the curve). Needs the points in
         memory or memory-mapped, and no ``checkpoint_dir``.
     network : options of the objective's default network; with ``fourier_features`` but no ``fourier_scale``
-        the scale comes from the data size (:func:`heatwalk.core.sizing.fourier_scale`).
+        the scale comes from the data's size and spread (:func:`heatwalk.core.sizing.fourier_scale`).
 
     Data-parallel runs
     ------------------
@@ -195,7 +195,7 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
     classes, label_idx = (None, None) if o.labels is None else _labels(o.labels, n_data, source, device)
     objective = make_objective(space, time_range=o.time_range, classes=classes, label_dropout=o.label_dropout,
                                inpainting=o.inpainting, time_tilt=o.time_tilt)
-    o = _apply_size_rule(o, n_data, space)
+    o = _apply_size_rule(o, n_data, space, source)
     rows, validation = _validation_split(o, source, label_idx, objective, device)
     if o.resume and o.checkpoint_dir is None:
         raise InputError("resume=True needs a checkpoint_dir", field="resume")
@@ -286,7 +286,20 @@ def _check_levers(lr_warmup, lr_floor, validation_fraction, validation_every, ch
                          "use it without checkpoint_dir", field="validation_fraction")
 
 
-def _apply_size_rule(o: _Settings, n_data, space) -> _Settings:
+#: the embedding spread of the Fourier-feature rule is measured on at most this many points (evenly spaced rows)
+SPREAD_MAX_POINTS = 10000
+
+
+def _spread(space, source, n_data):
+    if source.streams or n_data is None:
+        raise InputError("fourier_features without fourier_scale needs the data points to measure their spread; "
+                         "give fourier_scale for an iterable of batches", field="network")
+    idx = torch.linspace(0, n_data - 1, min(n_data, SPREAD_MAX_POINTS)).round().long()  # cpu: row ids
+    x = source.batch(idx)
+    return sizing.embedding_spread(space, x)
+
+
+def _apply_size_rule(o: _Settings, n_data, space, source) -> _Settings:
     """Settings with ``steps`` (3000 unless the size rule gives it) and the network options resolved."""
     dim = getattr(space, "dim", 0) or space.embed_dim
     network = dict(o.network) if o.network else None
@@ -295,7 +308,7 @@ def _apply_size_rule(o: _Settings, n_data, space) -> _Settings:
         rule = sizing.size_rule(n_data, dim)
         steps = rule["steps"] if steps is None else steps
         network = {**rule["network"], **(network or {})}
-    network = sizing.resolve_network(network, n_data, dim)
+    network = sizing.resolve_network(network, n_data, dim, lambda: _spread(space, source, n_data))
     steps = sizing.BASE_STEPS if steps is None else steps
     warmup = int(math.ceil(o.lr_warmup * steps)) if isinstance(o.lr_warmup, float) else o.lr_warmup
     return replace(o, steps=steps, network=network, lr_warmup=warmup)
