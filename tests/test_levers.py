@@ -144,3 +144,10 @@ def test_size_rule_steps_and_width_grow_with_the_data():
                          network={"depth": 2})
     assert model.record["steps"] == 4 and model.network.config()["hidden"] == 256
     assert model.network.config()["depth"] == 2
+
+
+def test_size_rule_sets_only_the_steps_of_sequence_objectives():
+    space = Categories(4, 3)
+    x = torch.randint(4, (50, 3), generator=torch.Generator().manual_seed(0))
+    model = heatwalk.fit(space, x, size_rule=True, steps=2, batch_size=16, progress=False)
+    assert model.network.config()["d_model"] == 64  # the transformer's own default, untouched by the rule

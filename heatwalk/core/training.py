@@ -140,7 +140,8 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
         ``Model.sample(given=...)`` is exact (see :mod:`heatwalk.core.conditioning`).
     device : "cpu" (default), "cuda", "cuda:N" or "auto" (:func:`heatwalk.core.devices.resolve_device`).
     size_rule : choose ``steps`` and the network's width and depth from the number of data points
-        (:func:`heatwalk.core.sizing.size_rule`); an explicit ``steps`` or ``network`` entry wins over the rule.
+        (:func:`heatwalk.core.sizing.size_rule`; the width and depth for score-matching networks only); an
+        explicit ``steps`` or ``network`` entry wins over the rule.
     time_tilt : tilt a ∈ (-1, 1) of the training-time density with importance weights that keep the objective
         unchanged (:mod:`heatwalk.core.schedule`; a > 0 draws more small times). Score-matching objectives only.
     validation_fraction : share of the data points (drawn with ``seed``) held out of training; every
@@ -195,7 +196,7 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
     classes, label_idx = (None, None) if o.labels is None else _labels(o.labels, n_data, source, device)
     objective = make_objective(space, time_range=o.time_range, classes=classes, label_dropout=o.label_dropout,
                                inpainting=o.inpainting, time_tilt=o.time_tilt)
-    o = _apply_size_rule(o, n_data, space, source)
+    o = _apply_size_rule(o, n_data, space, source, objective)
     rows, validation = _validation_split(o, source, label_idx, objective, device)
     if o.resume and o.checkpoint_dir is None:
         raise InputError("resume=True needs a checkpoint_dir", field="resume")
@@ -299,15 +300,17 @@ def _spread(space, source, n_data):
     return sizing.embedding_spread(space, x)
 
 
-def _apply_size_rule(o: _Settings, n_data, space, source) -> _Settings:
-    """Settings with ``steps`` (3000 unless the size rule gives it) and the network options resolved."""
+def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Settings:
+    """Settings with ``steps`` (3000 unless the size rule gives it) and the network options resolved. The rule's
+    width and depth apply to objectives whose default network is the MLP (``objective.sized_by_data``)."""
     dim = getattr(space, "dim", 0) or space.embed_dim
     network = dict(o.network) if o.network else None
     steps = o.steps
     if o.size_rule:
         rule = sizing.size_rule(n_data, dim)
         steps = rule["steps"] if steps is None else steps
-        network = {**rule["network"], **(network or {})}
+        if objective.sized_by_data:
+            network = {**rule["network"], **(network or {})}
     network = sizing.resolve_network(network, n_data, dim, lambda: _spread(space, source, n_data))
     steps = sizing.BASE_STEPS if steps is None else steps
     warmup = int(math.ceil(o.lr_warmup * steps)) if isinstance(o.lr_warmup, float) else o.lr_warmup

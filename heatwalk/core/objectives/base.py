@@ -49,6 +49,8 @@ class Objective(ABC):
     likelihood_is_bound: ClassVar[bool] = False
     #: True when the loss applies the importance weights of a tilted time density (``TimeSchedule.tilt``)
     supports_time_tilt: ClassVar[bool] = False
+    #: True when the size rule of ``heatwalk.fit`` sets the default network's ``hidden`` and ``depth``
+    sized_by_data: ClassVar[bool] = False
 
     def __init__(self, space, schedule: TimeSchedule, classes: list | None = None, label_dropout: float = 0.1,
                  inpainting: bool = False):

@@ -35,6 +35,7 @@ class ScoreMatching(Objective):
     field_kind = "score"
     default_sampler = "geodesic_random_walk"
     supports_time_tilt = True
+    sized_by_data = True
 
     def __init__(self, space, schedule, classes=None, label_dropout: float = 0.1, inpainting: bool = False):
         super().__init__(space, schedule, classes, label_dropout, inpainting)
