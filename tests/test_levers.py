@@ -58,9 +58,11 @@ def test_zero_tilt_reproduces_the_log_uniform_draws_with_unit_weights():
     assert "tilt" not in sched.config() and TimeSchedule(1e-4, 20.0, tilt=0.5).config()["tilt"] == 0.5
 
 
-def test_tilted_fit_records_its_tilt_and_other_objectives_refuse_it():
+def test_tilted_fit_records_its_tilt_and_other_objectives_refuse_it(tmp_path):
     model = heatwalk.fit(SPACE, _data(), steps=5, time_tilt=0.5, **SMALL)
     assert model.objective.schedule.tilt == 0.5 and model.record["levers"]["time_tilt"] == 0.5
+    model.save(tmp_path / "m")  # the tilt travels with the model (its schedule's config)
+    assert heatwalk.load(tmp_path / "m").objective.schedule.tilt == 0.5
     with pytest.raises(InputError, match="time_tilt must be 0 for it"):
         make_objective(Categories(4, 3), time_tilt=0.5)
     with pytest.raises(InputError, match="time_tilt"):
@@ -143,7 +145,13 @@ def test_size_rule_steps_and_width_grow_with_the_data():
     model = heatwalk.fit(SPACE, _data(), steps=4, size_rule=True, batch_size=32, progress=False,
                          network={"depth": 2})
     assert model.record["steps"] == 4 and model.network.config()["hidden"] == 256
-    assert model.network.config()["depth"] == 2
+    assert model.network.config()["depth"] == 2 and model.record["size_rule"] == "applied"
+    # on by default; below 4,000 points it gives the fixed defaults (3000 steps, width 256, depth 3)
+    big = SPACE.random_uniform(9000, torch.Generator().manual_seed(1))
+    wide = heatwalk.fit(SPACE, big, steps=2, batch_size=16, progress=False)
+    assert wide.network.config()["hidden"] == 512 and wide.record["size_rule"] == "applied"
+    off = heatwalk.fit(SPACE, big, steps=2, batch_size=16, progress=False, size_rule=False)
+    assert off.network.config()["hidden"] == 256 and off.record["size_rule"] == "off"
 
 
 def test_size_rule_sets_only_the_steps_of_sequence_objectives():

@@ -93,7 +93,7 @@ class _Settings:
     labels: object
     label_dropout: float
     inpainting: bool
-    size_rule: bool = False
+    size_rule: bool = True
     lr_warmup: int | float = 0
     lr_floor: float = 0.1
     time_tilt: float = 0.0
@@ -105,7 +105,7 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
         ema_decay: float = 0.999, seed: int = 0, network: dict | None = None,
         time_range: tuple[float, float] | None = None, checkpoint_dir=None, checkpoint_every: int = 1000,
         resume: bool = False, progress: bool = True, threads: int | None = None, labels=None,
-        label_dropout: float = 0.1, inpainting: bool = False, device=None, size_rule: bool = False,
+        label_dropout: float = 0.1, inpainting: bool = False, device=None, size_rule: bool = True,
         lr_warmup: int | float = 0, lr_floor: float = 0.1, time_tilt: float = 0.0, validation_fraction: float = 0.0,
         validation_every: int = 100) -> Model:
     """Fit a diffusion model to ``data`` (points on ``space``) and return a :class:`Model`.
@@ -116,7 +116,8 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
     data : points in memory (tensor, array, list; a tuple per factor for a product), a numpy memory-mapped
         array or a map-style torch Dataset (rows read batch by batch), or an iterable of batches such as a
         DataLoader (each item one global batch); see :mod:`heatwalk.core.data_source`.
-    steps, batch_size, lr : Adam steps (default 3000, or the size rule's), batch size, learning rate. In a
+    steps, batch_size, lr : Adam steps (default: the size rule's, 3000 up to 4,000 points; 3000 when the rule is
+        off or the data size is unknown), batch size, learning rate. In a
         data-parallel run ``batch_size`` is the global batch, split between the processes.
     lr_warmup, lr_floor : the learning rate rises linearly over the first ``lr_warmup`` steps (default 0: none;
         a float in (0, 1) is a share of the steps, rounded up),
@@ -139,9 +140,11 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
     inpainting : also train the network to condition on known coordinates (torus, R^d), so that
         ``Model.sample(given=...)`` is exact (see :mod:`heatwalk.core.conditioning`).
     device : "cpu" (default), "cuda", "cuda:N" or "auto" (:func:`heatwalk.core.devices.resolve_device`).
-    size_rule : choose ``steps`` and the network's width and depth from the number of data points
-        (:func:`heatwalk.core.sizing.size_rule`; the width and depth for score-matching networks only); an
-        explicit ``steps`` or ``network`` entry wins over the rule.
+    size_rule : choose ``steps`` and the network's width and depth from the number of data points (default on;
+        :func:`heatwalk.core.sizing.size_rule`: below 4,000 points the fixed 3000 steps and width 256, so small
+        fits are as before; the width and depth for score-matching networks only); an explicit ``steps`` or
+        ``network`` entry wins over the rule. With an iterable of batches (size unknown) the rule cannot apply
+        and the fixed defaults are used; the record's "size_rule" entry says which happened.
     time_tilt : tilt a ∈ (-1, 1) of the training-time density with importance weights that keep the objective
         unchanged (:mod:`heatwalk.core.schedule`; a > 0 draws more small times). Score-matching objectives only.
     validation_fraction : share of the data points (drawn with ``seed``) held out of training; every
@@ -245,9 +248,10 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
         "processes": share.world,
         "device": str(device),
     }
-    if o.size_rule or o.lr_warmup or o.lr_floor != 0.1 or o.time_tilt:
-        record["levers"] = {"size_rule": o.size_rule, "lr_warmup": o.lr_warmup, "lr_floor": o.lr_floor,
-                            "time_tilt": o.time_tilt}
+    record["size_rule"] = ("off" if not o.size_rule else "applied" if n_data is not None
+                           else "not applied: the data size of an iterable of batches is unknown")
+    if o.lr_warmup or o.lr_floor != 0.1 or o.time_tilt:
+        record["levers"] = {"lr_warmup": o.lr_warmup, "lr_floor": o.lr_floor, "time_tilt": o.time_tilt}
     if validation is not None:
         record["validation"] = validation.summary()
     # the loss of every step run here (step resumed_from_step + 1 onwards), saved as losses.csv by Model.save
@@ -306,7 +310,7 @@ def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Setting
     dim = getattr(space, "dim", 0) or space.embed_dim
     network = dict(o.network) if o.network else None
     steps = o.steps
-    if o.size_rule:
+    if o.size_rule and n_data is not None:
         rule = sizing.size_rule(n_data, dim)
         steps = rule["steps"] if steps is None else steps
         if objective.sized_by_data:

@@ -64,10 +64,11 @@ def fit_flags() -> list[Flag]:
         Flag("delimiter", str, "cell separator of a text table (default: detected from , tab ; |)", metavar="CHAR"),
         Flag("out", str, "model folder to write", metavar="FOLDER"),
         Flag("overwrite", bool, "replace an existing model folder"),
-        Flag("train_steps", int, "training steps (Adam)", default=3000, metavar="N"),
+        Flag("train_steps", int, "training steps (Adam); default: from the number of points, 3000 up to 4,000 "
+             "points, then 3000·sqrt(n/4000) up to 12,000", metavar="N"),
         Flag("batch_size", int, "training batch size (the global batch across processes)", default=512, metavar="N"),
         Flag("learning_rate", float, "Adam learning rate, cosine-decayed to a tenth", default=2e-3, metavar="LR"),
-        Flag("hidden", int, "network width (default: the objective's: 256 for manifolds, 64 for sequences)",
+        Flag("hidden", int, "network width (default: manifolds 256, 512 from 8,000 points; sequences 64)",
              metavar="N"),
         Flag("depth", int, "network depth (hidden layers; transformer layers for sequences)", metavar="N"),
         Flag("seed", int, "seed of every random draw (same seed, same model)", default=0),
