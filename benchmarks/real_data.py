@@ -20,7 +20,9 @@ all shipped inside packages, nothing downloaded):
 
 Models (all settings below are fixed up front and are not tuned on these results):
 
-- heatwalk: ``heatwalk.fit(space, train, seed=0)`` with every other argument at its default;
+- heatwalk: ``heatwalk.fit(space, train, seed=0)`` with every other argument at its default (since the size
+  rule became the default, steps and width follow the data size; ``results/real_data.json`` was made before,
+  with 3,000 steps and width 256 everywhere, ``results/ablation/full_size_rule.json`` with the rule);
   held-out log-likelihood ``model.log_prob(heldout)["log_prob"]`` (probability-flow ODE, nats
   w.r.t. the space's reference measure: arc-length area on T², area on S², the bi-invariant
   volume of total 8π² on SO(3), Lebesgue measure on the first 5 parts on the simplex).
