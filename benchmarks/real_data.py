@@ -1,6 +1,7 @@
 """Fit quality on real data: heatwalk at default settings vs EM mixtures vs a Euclidean diffusion.
 
-    python benchmarks/real_data.py [--quick] [--only torus sphere so3 simplex] [--out FILE] [--progress]
+    python benchmarks/real_data.py [--quick | --screen] [--only torus sphere so3 simplex] [--out FILE] [--progress]
+        [--heatwalk-option KEY=VALUE ...] [--reuse-baselines] [--no-euclidean] [--no-heatwalk]
 
 Data (loaded by ``benchmarks/real_datasets.py``, which states provenance, licences and units;
 all shipped inside packages, nothing downloaded):
@@ -19,7 +20,9 @@ all shipped inside packages, nothing downloaded):
 
 Models (all settings below are fixed up front and are not tuned on these results):
 
-- heatwalk: ``heatwalk.fit(space, train, seed=0)`` with every other argument at its default;
+- heatwalk: ``heatwalk.fit(space, train, seed=0)`` with every other argument at its default (since the size
+  rule became the default, steps and width follow the data size; ``results/real_data.json`` was made before,
+  with 3,000 steps and width 256 everywhere, ``results/ablation/full_size_rule.json`` with the rule);
   held-out log-likelihood ``model.log_prob(heldout)["log_prob"]`` (probability-flow ODE, nats
   w.r.t. the space's reference measure: arc-length area on T², area on S², the bi-invariant
   volume of total 8π² on SO(3), Lebesgue measure on the first 5 parts on the simplex).
@@ -45,7 +48,20 @@ reference (it shows how far the held-out block lies from the training data); fit
 
 ``--quick`` (for smoke tests, a few minutes): 3,000 training and 400 held-out points drawn at
 random from each split, 300 fit steps for both diffusions, k <= 6 with 2 initialisations,
-300 points for the MMD. Its figures are not the benchmark's.
+300 points for the MMD. Its figures are not the benchmark's. ``--screen`` (lever screening): all
+training points and full mode's baseline settings, 1,000 held-out points drawn at random from each
+held-out set, 1,000 fit steps.
+
+Ablations (``benchmarks/real_data_ablation.py`` tabulates them): ``--heatwalk-option KEY=VALUE``
+passes an extra keyword argument to heatwalk's fit (a named variant, recorded in the results);
+``--reuse-baselines`` takes the mixture from ``benchmarks/results/real_data_baselines.json``
+(``baseline_cache.py``: keyed by data set, the bytes of the training and held-out points, the
+baseline's settings, the seed and the source of ``mixtures.py``), and on a miss replays the BIC
+choice of ``--replay-from`` (the saved full run; the replayed fit must reproduce its recorded
+log-likelihood) or runs the whole BIC search; the mixture's fit seconds are then those of the run
+that fitted it. ``--no-euclidean`` skips the Euclidean diffusion, ``--no-heatwalk`` heatwalk (to
+fill the cache). heatwalk's per-point held-out log-densities are kept in the results (``logq``) so
+that variants can be compared point by point.
 """
 
 from __future__ import annotations
@@ -66,6 +82,7 @@ import torch
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import heatwalk  # noqa: E402
+import baseline_cache  # noqa: E402
 import mixtures  # noqa: E402
 import permutation_mmd  # noqa: E402
 import real_datasets  # noqa: E402
@@ -78,6 +95,10 @@ RESULTS = Path(__file__).resolve().parent / "results"
 MODES = {
     "full": dict(train_max=None, heldout_max=None, steps=None, k_max=32, restarts=3, n_mmd=1000, n_perm=100),
     "quick": dict(train_max=3000, heldout_max=400, steps=300, k_max=6, restarts=2, n_mmd=300, n_perm=50),
+    # lever screening: all training points and the full mode's baseline (so its BIC choices replay), 1,000
+    # held-out points drawn at random from each held-out set (the per-frame standard error still applies) and
+    # 1,000 fit steps (about a third of full mode's time)
+    "screen": dict(train_max=None, heldout_max=1000, steps=1000, k_max=32, restarts=3, n_mmd=1000, n_perm=100),
 }
 #: the one non-default log_prob option, see the module docstring (the default does not terminate there)
 LOG_PROB_OPTIONS = {"simplex": {"divergence": "exact"}}
@@ -149,10 +170,11 @@ def paired(nll_a, nll_b, groups):
     return out
 
 
-def run_heatwalk(name, space, train, held, cfg, progress):
+def run_heatwalk(name, space, train, held, cfg, progress, options=None):
     kw = {"seed": SEED, "progress": progress}
     if cfg["steps"] is not None:
         kw["steps"] = cfg["steps"]
+    kw.update(options or {})
     model = heatwalk.fit(space, train, **kw)
     t0 = time.perf_counter()
     out = model.log_prob(held, **LOG_PROB_OPTIONS.get(name, {}))
@@ -162,18 +184,35 @@ def run_heatwalk(name, space, train, held, cfg, progress):
     return {"logq": out["log_prob"].numpy(), "samples": samples, "fit_seconds": model.record["train_seconds"],
             "log_prob_seconds": lp_seconds, "sample_seconds": time.perf_counter() - t0,
             "steps": model.record["steps"], "log_prob_options": LOG_PROB_OPTIONS.get(name, {}),
-            "divergence": out.get("divergence"), "final_loss": model.record["final_loss"]}
+            "divergence": out.get("divergence"), "final_loss": model.record.get("mean_loss_last_100_steps"),
+            "record": {k: v for k, v in model.record.items() if k in ("levers", "validation", "steps", "lr")},
+            "network": model.network.config()}
 
 
-def run_mixture(name, space, train, held, cfg):
+def run_mixture(name, space, train, held, cfg, reuse=None):
+    """The EM mixture chosen by BIC. ``reuse`` (None or a dict with the cache key and a saved full run to replay
+    from, see ``baseline_cache``): a cached result is returned as it was stored (with its MMD); a miss replays the
+    saved run's chosen k when it has this data set, else runs the whole BIC search."""
+    if reuse is not None and reuse["key"] in reuse["cache"]:
+        entry = dict(reuse["cache"][reuse["key"]])
+        return {**entry, "logq": np.asarray(entry.pop("logq")), "baseline": "cached"}
     fam, to, back, extra = mixture_family(name, space)
+    saved = None if reuse is None else reuse.get("saved_row")
     t0 = time.perf_counter()
-    fit = mixtures.fit_by_bic(fam, to(train), cfg["k_max"], SEED, restarts=cfg["restarts"])
-    seconds = time.perf_counter() - t0
+    if saved is not None:
+        k_star = saved["mixture"]["k"]
+        table = saved["mixture"]["bic_table"]
+        fit = baseline_cache.replay_chosen_k(fam, to(train), cfg["k_max"], SEED, cfg["restarts"], k_star,
+                                             table[k_star - 1]["loglik"])
+        fit["bic_table"] = table
+        seconds, how = saved["mixture"]["fit_seconds"], "replayed chosen k of the saved full run (its fit seconds)"
+    else:
+        fit = mixtures.fit_by_bic(fam, to(train), cfg["k_max"], SEED, restarts=cfg["restarts"])
+        seconds, how = time.perf_counter() - t0, "fitted"
     logq = mixtures.mixture_log_prob(fam, fit, to(held)) + extra(held)
     samples = back(mixtures.mixture_sample(fam, fit, cfg["n_mmd"], SEED + 7))
     return {"logq": logq, "samples": samples, "fit_seconds": seconds, "k": int(fit["k"]),
-            "family": type(fam).__name__, "bic_table": fit["bic_table"]}
+            "family": type(fam).__name__, "bic_table": fit["bic_table"], "baseline": how}
 
 
 def run_euclidean(name, space, train, cfg, progress):
@@ -197,17 +236,26 @@ def guarded(what, fn, *args):
         return {"error": f"{what}: {type(e).__name__}: {e}"}
 
 
-def run_dataset(name, cfg, progress):
+def run_dataset(name, cfg, progress, options=None, euclidean=True, reuse=None, fit_heatwalk=True):
+    """One row of the table. ``options``: extra keyword arguments of heatwalk's fit (an ablation variant);
+    ``euclidean``: fit the Euclidean diffusion too; ``reuse``: None, or {"saved": a saved full run's rows by data
+    set name} to take the mixture from the baseline cache (module docstring)."""
     t_start = time.perf_counter()
     space = make_space(name)
     data = real_datasets.load(name, space)
     train, _ = subsample(data["train"], cfg["train_max"], SEED + 1)
     held, groups = subsample(data["heldout"], cfg["heldout_max"], SEED + 2, data["groups"])
     row = {"data": name, "label": LABELS[name], "info": {k: v for k, v in data["info"].items() if k != "resids"},
-           "n_train": int(train.shape[0]), "n_heldout": int(held.shape[0])}
-    hw = guarded("heatwalk", run_heatwalk, name, space, train, held, cfg, progress)
-    mx = guarded("mixture", run_mixture, name, space, train, held, cfg)
-    eu = guarded("euclidean", run_euclidean, name, space, train, cfg, progress)
+           "n_train": int(train.shape[0]), "n_heldout": int(held.shape[0]), "heatwalk_options": options or {}}
+    mix_reuse = None
+    if reuse is not None:
+        key = baseline_cache.baseline_key(name, train, held, cfg, SEED)
+        mix_reuse = {"key": key, "cache": baseline_cache.load(), "saved_row": reuse["saved"].get(name)}
+    hw = (guarded("heatwalk", run_heatwalk, name, space, train, held, cfg, progress, options) if fit_heatwalk
+          else {"error": "heatwalk: not run (--no-heatwalk)"})
+    mx = guarded("mixture", run_mixture, name, space, train, held, cfg, mix_reuse)
+    eu = (guarded("euclidean", run_euclidean, name, space, train, cfg, progress) if euclidean
+          else {"error": "euclidean: not run (--no-euclidean)"})
 
     held_a, _ = subsample(held, cfg["n_mmd"], SEED + 3)
     ref, _ = subsample(train, cfg["n_mmd"], SEED + 4)
@@ -215,16 +263,20 @@ def run_dataset(name, cfg, progress):
     row["mmd_bandwidth"] = bw
     row["train_reference"] = {"mmd": permutation_mmd.mmd_z(space, ref, held_a, bw, cfg["n_perm"], SEED + 8)}
     for key, res in (("heatwalk", hw), ("mixture", mx), ("euclidean", eu)):
-        if "error" not in res:
+        if "error" not in res and "samples" in res:
             res["mmd"] = permutation_mmd.mmd_z(space, res.pop("samples")[:cfg["n_mmd"]], held_a, bw, cfg["n_perm"],
                                                SEED + 8)
         if "logq" in res:
             res["nll"] = nll_summary(res["logq"])
         row[key] = res
+    if mix_reuse is not None and "logq" in mx and mx.get("baseline") != "cached":
+        baseline_cache.store(mix_reuse["key"], {k: (v.tolist() if k == "logq" else v) for k, v in mx.items()
+                                                if k != "baseline"})
     if "logq" in hw and "logq" in mx:
         row["paired_heatwalk_minus_mixture"] = paired(-hw["logq"], -mx["logq"], groups)
-    for res in (hw, mx):
-        res.pop("logq", None)
+    if "logq" in hw:  # kept per point (nats), so that variants of an ablation can be compared pairwise
+        hw["logq"] = [float(v) for v in hw["logq"]]
+    mx.pop("logq", None)
     row["seconds"] = time.perf_counter() - t_start
     return row
 
@@ -292,35 +344,82 @@ def write_json(path: Path, payload: dict):
     os.replace(tmp, path)
 
 
+def parse_options(pairs):
+    """``["a=1", "net.hidden=512"]`` -> ``{"a": 1, "net": {"hidden": 512}}`` (values read as JSON, else strings)."""
+    out = {}
+    for pair in pairs:
+        key, sep, text = pair.partition("=")
+        if not sep or not key:
+            raise SystemExit(f"--heatwalk-option {pair!r}: expected KEY=VALUE")
+        try:
+            value = json.loads(text)
+        except json.JSONDecodeError:
+            value = text
+        *path, last = key.split(".")
+        node = out
+        for part in path:
+            node = node.setdefault(part, {})
+        node[last] = value
+    return out
+
+
+def saved_rows(path: Path, cfg: dict) -> dict:
+    """Rows (by data set) of a saved run made with this mode's baseline settings, for replaying BIC choices."""
+    if not path.is_file():
+        return {}
+    saved = json.loads(path.read_text())
+    if any(saved.get("settings", {}).get(k) != cfg[k] for k in baseline_cache.BASELINE_SETTINGS):
+        return {}
+    return {r["data"]: r for r in saved["rows"] if "k" in r.get("mixture", {})}
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="subsampled data and 300 fit steps (a few minutes)")
+    ap.add_argument("--screen", action="store_true",
+                    help="lever screening: all training points, 1,000 held-out points, 1,000 fit steps")
     ap.add_argument("--only", nargs="*", choices=ORDER, default=None, help="run only these data sets")
     ap.add_argument("--out", type=Path, default=None,
                     help="JSON file (default benchmarks/results/real_data.json, or real_data_quick.json)")
     ap.add_argument("--progress", action="store_true", help="show training progress bars")
     ap.add_argument("--show", nargs="+", type=Path, default=None,
                     help="print the table of saved result files (rows of several runs together) and exit")
+    ap.add_argument("--heatwalk-option", action="append", default=[], metavar="KEY=VALUE",
+                    help="extra keyword argument of heatwalk.fit for an ablation variant (VALUE read as JSON, else a "
+                         "string; KEY a.b sets entry b of the dict argument a, e.g. network.hidden=512); repeatable")
+    ap.add_argument("--no-euclidean", action="store_true", help="skip the Euclidean-embedding diffusion")
+    ap.add_argument("--no-heatwalk", action="store_true", help="skip heatwalk (e.g. to fill the baseline cache)")
+    ap.add_argument("--reuse-baselines", action="store_true",
+                    help="take the mixture from benchmarks/results/real_data_baselines.json when its key (data, split, "
+                         "settings, seed, mixtures.py) matches; on a miss replay the chosen k of --replay-from, or fit")
+    ap.add_argument("--replay-from", type=Path, default=RESULTS / "real_data.json",
+                    help="saved run whose BIC choices a cache miss replays (used only if its settings are this mode's)")
     args = ap.parse_args(argv)
     torch.set_num_threads(1)
-    mode = "quick" if args.quick else "full"
+    mode = "quick" if args.quick else ("screen" if args.screen else "full")
     cfg = MODES[mode]
-    out = args.out or RESULTS / ("real_data_quick.json" if args.quick else "real_data.json")
+    out = args.out or RESULTS / {"quick": "real_data_quick.json", "screen": "real_data_screen.json",
+                                 "full": "real_data.json"}[mode]
     if args.show:
         rows = [r for f in args.show for r in json.loads(f.read_text())["rows"]]
         print(format_table(sorted(rows, key=lambda r: ORDER.index(r["data"]))))
         return
+    options = parse_options(args.heatwalk_option)
+    reuse = {"saved": saved_rows(args.replay_from, cfg)} if args.reuse_baselines else None
     rows, t0 = [], time.perf_counter()
     names = [n for n in ORDER if not args.only or n in args.only]
     for name in names:
-        rows.append(run_dataset(name, cfg, args.progress))
+        rows.append(run_dataset(name, cfg, args.progress, options, not args.no_euclidean, reuse,
+                                not args.no_heatwalk))
         print(f"[{name}] done in {rows[-1]['seconds']:.0f} s", file=sys.stderr, flush=True)
         write_json(out, {"mode": mode, "complete": len(rows) == len(names), "settings": cfg,
-                         "log_prob_options": LOG_PROB_OPTIONS, "seed": SEED, "versions": versions(),
+                         "log_prob_options": LOG_PROB_OPTIONS, "seed": SEED,
+                         "heatwalk_options": options, "reuse_baselines": bool(args.reuse_baselines), "versions": versions(),
                          "total_seconds": time.perf_counter() - t0, "rows": rows})
     total = time.perf_counter() - t0
-    note = "" if mode == "full" else (" — QUICK: subsampled to <= 3000 train / 400 held-out points, 300 fit "
-                                      "steps, k <= 6; not the benchmark's figures")
+    note = {"full": "", "quick": " — QUICK: subsampled to <= 3000 train / 400 held-out points, 300 fit steps, k <= 6; "
+                                 "not the benchmark's figures",
+            "screen": " — SCREEN: <= 1000 held-out points, 1000 fit steps; not the benchmark's figures"}[mode]
     print(f"real-data fit quality ({mode} mode{note}; seed {SEED}, torch threads 1, total {total:.0f} s)")
     print(format_table(rows))
     print(f"written {out}")

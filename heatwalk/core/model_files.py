@@ -45,7 +45,8 @@ MAX_PARAMETERS = 10**9
 #: largest value of each size in a network config; layer counts are kept small, since each layer is an object
 _WIDTH = 2**24
 NETWORK_LIMITS = {
-    "mlp": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000},
+    "mlp": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
+            "fourier_features": _WIDTH, "fourier_scale": None},
     "transformer": {"length": _WIDTH, "n_inputs": _WIDTH, "n_outputs": _WIDTH, "time_dim": _WIDTH,
                     "d_model": _WIDTH, "n_layers": 1000, "n_heads": 4096},
 }
@@ -122,6 +123,11 @@ def _check_network(network: dict, where: Path) -> None:
             raise InputError(f"{where}: unknown key {field!r} for a {name} network (known: {', '.join(limits)})",
                              field=field)
         top = limits.get(key, _WIDTH)
+        if top is None:  # a positive finite real number
+            if not isinstance(value, (int, float)) or isinstance(value, bool) or not 0 < value < float("inf"):
+                raise InputError(f"{where}: key {field!r} must be a positive finite number, got "
+                                 f"{json.dumps(value)[:60]}", field=field)
+            continue
         if not isinstance(value, int) or isinstance(value, bool) or not 1 <= value <= top:
             raise InputError(f"{where}: key {field!r} must be an integer in [1, {top}], got {json.dumps(value)[:60]}",
                              field=field)

@@ -33,14 +33,14 @@ import hashlib
 import json
 import math
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import torch
 from tqdm.auto import tqdm
 
 from heatwalk.checks import check_number, check_positive_int
-from heatwalk.core import parallel
+from heatwalk.core import parallel, sizing
 from heatwalk.core.data_source import data_source
 from heatwalk.core.devices import make_generator, resolve_device, set_threads
 from heatwalk.core.interrupts import Interrupted, stop_requests
@@ -50,6 +50,7 @@ from heatwalk.core.model_files import check_parameter_count, load_plain_tensors
 from heatwalk.core.networks import network_name
 from heatwalk.core.objectives import make_objective
 from heatwalk.core.result_checks import check_finite_loss
+from heatwalk.core.validation import VALIDATION_MAX_POINTS, VALIDATION_SEED_OFFSET, Validation
 from heatwalk.errors import InputError
 from heatwalk.io.atomic import atomic_path, remove_stale_temporaries
 from heatwalk.notices import warn
@@ -92,13 +93,21 @@ class _Settings:
     labels: object
     label_dropout: float
     inpainting: bool
+    size_rule: bool = True
+    lr_warmup: int | float = 0
+    lr_floor: float = 0.1
+    time_tilt: float = 0.0
+    validation_fraction: float = 0.0
+    validation_every: int = 100
 
 
-def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e-3,
+def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: float = 2e-3,
         ema_decay: float = 0.999, seed: int = 0, network: dict | None = None,
         time_range: tuple[float, float] | None = None, checkpoint_dir=None, checkpoint_every: int = 1000,
         resume: bool = False, progress: bool = True, threads: int | None = None, labels=None,
-        label_dropout: float = 0.1, inpainting: bool = False, device=None) -> Model:
+        label_dropout: float = 0.1, inpainting: bool = False, device=None, size_rule: bool = True,
+        lr_warmup: int | float = 0, lr_floor: float = 0.1, time_tilt: float = 0.0, validation_fraction: float = 0.0,
+        validation_every: int = 100) -> Model:
     """Fit a diffusion model to ``data`` (points on ``space``) and return a :class:`Model`.
 
     Parameters
@@ -107,8 +116,12 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     data : points in memory (tensor, array, list; a tuple per factor for a product), a numpy memory-mapped
         array or a map-style torch Dataset (rows read batch by batch), or an iterable of batches such as a
         DataLoader (each item one global batch); see :mod:`heatwalk.core.data_source`.
-    steps, batch_size, lr : Adam steps, batch size, learning rate (cosine-decayed to lr/10). In a data-parallel
-        run ``batch_size`` is the global batch, split between the processes.
+    steps, batch_size, lr : Adam steps (default: the size rule's, 3000 up to 4,000 points; 3000 when the rule is
+        off or the data size is unknown), batch size, learning rate. In a
+        data-parallel run ``batch_size`` is the global batch, split between the processes.
+    lr_warmup, lr_floor : the learning rate rises linearly over the first ``lr_warmup`` steps (default 0: none;
+        a float in (0, 1) is a share of the steps, rounded up),
+        then follows a cosine from lr down to ``lr_floor`` · lr at the last step (default 0.1).
     ema_decay : decay of the exponential moving average whose weights the model keeps
         (warmed up as min(ema_decay, (1+k)/(10+k)) at step k).
     seed : seeds network initialisation, batches and diffusion noise.
@@ -127,6 +140,20 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     inpainting : also train the network to condition on known coordinates (torus, R^d), so that
         ``Model.sample(given=...)`` is exact (see :mod:`heatwalk.core.conditioning`).
     device : "cpu" (default), "cuda", "cuda:N" or "auto" (:func:`heatwalk.core.devices.resolve_device`).
+    size_rule : choose ``steps`` and the network's width and depth from the number of data points (default on;
+        :func:`heatwalk.core.sizing.size_rule`: below 4,000 points the fixed 3000 steps and width 256, so small
+        fits are as before; the width and depth for score-matching networks only); an explicit ``steps`` or
+        ``network`` entry wins over the rule. With an iterable of batches (size unknown) the rule cannot apply
+        and the fixed defaults are used; the record's "size_rule" entry says which happened.
+    time_tilt : tilt a ∈ (-1, 1) of the training-time density with importance weights that keep the objective
+        unchanged (:mod:`heatwalk.core.schedule`; a > 0 draws more small times). Score-matching objectives only.
+    validation_fraction : share of the data points (drawn with ``seed``) held out of training; every
+        ``validation_every`` steps and at the end the EMA weights' denoising loss on fixed draws (times and
+        noise drawn once) of up to 4,096 of them is measured, and the model keeps the EMA weights of the
+        lowest one (early model choice; the record's "validation" entry has the curve). Needs the points in
+        memory or memory-mapped, and no ``checkpoint_dir``.
+    network : options of the objective's default network; with ``fourier_features`` but no ``fourier_scale``
+        the scale comes from the data's size and spread (:func:`heatwalk.core.sizing.fourier_scale`).
 
     Data-parallel runs
     ------------------
@@ -140,13 +167,16 @@ def fit(space, data, *, steps: int = 3000, batch_size: int = 512, lr: float = 2e
     (``if heatwalk.core.parallel.is_main_process(): model.save(...)``).
     """
     _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads)
+    _check_levers(lr_warmup, lr_floor, validation_fraction, validation_every, checkpoint_dir)
     device = resolve_device(device)
     before = set_threads(threads)
     started = not parallel.is_distributed() and parallel.launched()
     try:
         share = parallel.ensure_started(device)
         settings = _Settings(steps, batch_size, lr, ema_decay, seed, network, time_range, checkpoint_dir,
-                             checkpoint_every, resume, progress, labels, label_dropout, inpainting)
+                             checkpoint_every, resume, progress, labels, label_dropout, inpainting, bool(size_rule),
+                             lr_warmup, float(lr_floor), float(time_tilt), float(validation_fraction),
+                             int(validation_every))
         return _fit(space, data, share, device, settings)
     finally:
         torch.set_num_threads(before)
@@ -168,17 +198,24 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
         raise InputError(f"need at least 2 data points to fit, got {n_data}", field="data")
     classes, label_idx = (None, None) if o.labels is None else _labels(o.labels, n_data, source, device)
     objective = make_objective(space, time_range=o.time_range, classes=classes, label_dropout=o.label_dropout,
-                               inpainting=o.inpainting)
+                               inpainting=o.inpainting, time_tilt=o.time_tilt)
+    o = _apply_size_rule(o, n_data, space, source, objective)
+    rows, validation = _validation_split(o, source, label_idx, objective, device)
     if o.resume and o.checkpoint_dir is None:
         raise InputError("resume=True needs a checkpoint_dir", field="resume")
     ckpt_path = _checkpoint_path(o.checkpoint_dir) if share.rank == 0 else _checkpoint_file(o.checkpoint_dir)
-    run = _start(objective, o.network, o.lr, o.steps, o.seed, device, share)
+    run = _start(objective, o.network, o.lr, o.steps, o.seed, device, share, o.lr_warmup, o.lr_floor)
     run_config = {
         "space": space.config(), "objective": objective.config(),
         "network": {"name": network_name(run.net), "config": run.net.config()},
         "steps": o.steps, "batch_size": o.batch_size, "lr": o.lr, "ema_decay": o.ema_decay, "seed": o.seed,
         "n_data": n_data, "data": source_fingerprint(source, label_idx),
     }
+    # the levers enter the run's settings only when they differ from their defaults, so checkpoints made before
+    # they existed still resume
+    for key, default in (("lr_warmup", 0), ("lr_floor", 0.1), ("validation_fraction", 0.0)):
+        if getattr(o, key) != default:
+            run_config[key] = getattr(o, key)
     start, losses = 0, []
     if o.resume:
         if ckpt_path.is_file():
@@ -191,15 +228,16 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
 
     t0 = time.perf_counter()
     try:
-        _train(objective, run, (source, label_idx), start, o.steps, o.batch_size, o.ema_decay,
+        _train(objective, run, (source, label_idx, rows, validation), start, o.steps, o.batch_size, o.ema_decay,
                o.progress and share.rank == 0,
                lambda step: _checkpoint(ckpt_path, run_config, step, run, losses) if ckpt_path else None,
                o.checkpoint_every, losses)
     finally:
         run.forward = None  # drop the DistributedDataParallel wrapper (see fit)
     elapsed = time.perf_counter() - t0
+    kept = run.ema if validation is None else validation.best_weights
     with torch.no_grad():
-        for p, e in zip(run.net.parameters(), run.ema):
+        for p, e in zip(run.net.parameters(), kept):
             p.copy_(e)
     tail = losses[-min(len(losses), LOSS_WINDOW):]
     record = {
@@ -210,6 +248,12 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
         "processes": share.world,
         "device": str(device),
     }
+    record["size_rule"] = ("off" if not o.size_rule else "applied" if n_data is not None
+                           else "not applied: the data size of an iterable of batches is unknown")
+    if o.lr_warmup or o.lr_floor != 0.1 or o.time_tilt:
+        record["levers"] = {"lr_warmup": o.lr_warmup, "lr_floor": o.lr_floor, "time_tilt": o.time_tilt}
+    if validation is not None:
+        record["validation"] = validation.summary()
     # the loss of every step run here (step resumed_from_step + 1 onwards), saved as losses.csv by Model.save
     return Model(space, objective, run.net, record, losses=torch.tensor(losses, dtype=torch.float64))  # cpu: a record
 
@@ -224,13 +268,78 @@ def _labels(labels, n_data, source, device):
 
 
 def _check_settings(steps, batch_size, checkpoint_every, ema_decay, lr, threads) -> None:
-    check_positive_int("steps", steps)
+    if steps is not None:
+        check_positive_int("steps", steps)
     check_positive_int("batch_size", batch_size)
     check_positive_int("checkpoint_every", checkpoint_every)
     check_number("ema_decay", ema_decay, minimum=0, maximum=1, open_maximum=True)
     check_number("lr", lr, minimum=0, open_minimum=True)
     if threads is not None:
         check_positive_int("threads", threads)
+
+
+def _check_levers(lr_warmup, lr_floor, validation_fraction, validation_every, checkpoint_dir) -> None:
+    if isinstance(lr_warmup, float) and 0 < lr_warmup < 1:
+        pass  # a share of the steps
+    elif lr_warmup != 0:
+        check_positive_int("lr_warmup", lr_warmup)
+    check_number("lr_floor", lr_floor, minimum=0, maximum=1)
+    check_number("validation_fraction", validation_fraction, minimum=0, maximum=0.5)
+    check_positive_int("validation_every", validation_every)
+    if validation_fraction > 0 and checkpoint_dir is not None:
+        raise InputError("validation_fraction > 0 keeps the best weights in memory, which checkpoints do not hold; "
+                         "use it without checkpoint_dir", field="validation_fraction")
+
+
+#: the embedding spread of the Fourier-feature rule is measured on at most this many points (evenly spaced rows)
+SPREAD_MAX_POINTS = 10000
+
+
+def _spread(space, source, n_data):
+    if source.streams or n_data is None:
+        raise InputError("fourier_features without fourier_scale needs the data points to measure their spread; "
+                         "give fourier_scale for an iterable of batches", field="network")
+    idx = torch.linspace(0, n_data - 1, min(n_data, SPREAD_MAX_POINTS)).round().long()  # cpu: row ids
+    x = source.batch(idx)
+    return sizing.embedding_spread(space, x)
+
+
+def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Settings:
+    """Settings with ``steps`` (3000 unless the size rule gives it) and the network options resolved. The rule's
+    width and depth apply to objectives whose default network is the MLP (``objective.sized_by_data``)."""
+    dim = getattr(space, "dim", 0) or space.embed_dim
+    network = dict(o.network) if o.network else None
+    steps = o.steps
+    if o.size_rule and n_data is not None:
+        rule = sizing.size_rule(n_data, dim)
+        steps = rule["steps"] if steps is None else steps
+        if objective.sized_by_data:
+            network = {**rule["network"], **(network or {})}
+    network = sizing.resolve_network(network, n_data, dim, lambda: _spread(space, source, n_data))
+    steps = sizing.BASE_STEPS if steps is None else steps
+    warmup = int(math.ceil(o.lr_warmup * steps)) if isinstance(o.lr_warmup, float) else o.lr_warmup
+    return replace(o, steps=steps, network=network, lr_warmup=warmup)
+
+
+def _validation_split(o: _Settings, source, label_idx, objective, device):
+    """(training row ids or None, the Validation of the held-out rows or None)."""
+    if o.validation_fraction == 0:
+        return None, None
+    n = source.n
+    if source.streams or n is None:
+        raise InputError("validation_fraction needs the data points (in memory, memory-mapped or a Dataset), not an "
+                         "iterable of batches", field="validation_fraction")
+    n_val = int(round(o.validation_fraction * n))
+    if n_val < 1 or n - n_val < 2:
+        raise InputError(f"validation_fraction {o.validation_fraction} of {n} points leaves {n_val} for validation "
+                         f"and {n - n_val} for training; need at least 1 and 2", field="validation_fraction")
+    perm = torch.randperm(n, generator=torch.Generator().manual_seed(o.seed + VALIDATION_SEED_OFFSET))  # cpu: ids
+    rows, held = perm[n_val:].sort().values.to(device), perm[:n_val].sort().values
+    held = held[:VALIDATION_MAX_POINTS].to(device)
+    x0 = source.batch(held)
+    labels = None if label_idx is None else label_idx[held]
+    drawn = objective.draw(x0, make_generator(o.seed + VALIDATION_SEED_OFFSET, device), labels)
+    return rows, Validation(objective, drawn, n_val, o.validation_every, o.validation_fraction)
 
 
 def data_fingerprint(x_data, label_idx=None) -> dict:
@@ -276,9 +385,10 @@ def _checkpoint_path(checkpoint_dir) -> Path | None:
 
 
 def _start(objective, network: dict | None, lr: float, steps: int, seed: int, device: torch.device,
-           share: parallel.Share) -> _Run:
-    """Network (initialised from ``seed`` on the CPU, then moved to ``device``), EMA copy, Adam with a cosine
-    schedule to lr/10, the generator on ``device``, and the DistributedDataParallel wrapper of a multi-process run."""
+           share: parallel.Share, warmup: int = 0, floor: float = 0.1) -> _Run:
+    """Network (initialised from ``seed`` on the CPU, then moved to ``device``), EMA copy, Adam with a linear
+    warm-up over ``warmup`` steps and a cosine schedule to ``floor`` · lr, the generator on ``device``, and the
+    DistributedDataParallel wrapper of a multi-process run."""
     with torch.random.fork_rng(devices=[]), torch.device("meta"):
         check_parameter_count(objective.default_network(**(network or {})))
     with torch.random.fork_rng(devices=[]):
@@ -287,8 +397,7 @@ def _start(objective, network: dict | None, lr: float, steps: int, seed: int, de
     net = net.to(device)
     ema = [p.detach().clone() for p in net.parameters()]
     opt = torch.optim.Adam(list(net.parameters()), lr=lr)
-    sched = torch.optim.lr_scheduler.LambdaLR(
-        opt, lambda k: 0.1 + 0.9 * 0.5 * (1 + math.cos(math.pi * min(k, steps) / steps)))
+    sched = torch.optim.lr_scheduler.LambdaLR(opt, lambda k: lr_factor(k, steps, warmup, floor))
     forward = net
     if not share.whole:
         ids = [device.index] if device.type == "cuda" else None
@@ -296,15 +405,25 @@ def _start(objective, network: dict | None, lr: float, steps: int, seed: int, de
     return _Run(net, ema, opt, sched, make_generator(seed, device), forward, share)
 
 
+def lr_factor(k: int, steps: int, warmup: int = 0, floor: float = 0.1) -> float:
+    """Learning-rate multiplier at step k: (k + 1) / warmup during the warm-up, then
+    floor + (1 - floor) (1 + cos(π k / steps)) / 2 (with warmup = 0 and floor = 0.1 the schedule heatwalk always had)."""
+    cosine = floor + (1.0 - floor) * 0.5 * (1 + math.cos(math.pi * min(k, steps) / steps))
+    return cosine * min(1.0, (k + 1) / warmup) if warmup else cosine
+
+
 def _batch(run: _Run, data, batch_size: int):
     """The next global batch and its class indices (None without labels).
 
     Row sources draw the batch's row indices from the run's generator; a stream gives its next batch.
     """
-    source, label_idx = data
+    source, label_idx, rows = data[:3]
     if source.streams:
         return source.next(), None
-    idx = torch.randint(source.n, (batch_size,), generator=run.gen, device=run.gen.device)
+    if rows is None:
+        idx = torch.randint(source.n, (batch_size,), generator=run.gen, device=run.gen.device)
+    else:  # training rows only (validation_fraction > 0)
+        idx = rows[torch.randint(rows.shape[0], (batch_size,), generator=run.gen, device=run.gen.device)]
     return source.batch(idx), (None if label_idx is None else label_idx[idx])
 
 
@@ -344,6 +463,9 @@ def _steps(objective, run, data, start, steps, batch_size, ema_decay, progress, 
         running = value if running is None else 0.98 * running + 0.02 * value
         if progress and (step % 25 == 0 or step == steps - 1):
             bar.set_postfix(loss=f"{running:.4f}")
+        validation = data[3]
+        if validation is not None and ((step + 1) % validation.every == 0 or step + 1 == steps):
+            validation.evaluate(run.net, run.ema, step + 1)
         periodic = (step + 1) % every == 0 or step + 1 == steps
         written = save(step + 1) if periodic else None
         if stop.requested:

@@ -22,8 +22,10 @@ __all__ = ["OBJECTIVES", "Objective", "ScoreMatching", "DiscreteELBO", "ProductO
 
 
 def make_objective(space, config: dict | None = None, time_range: tuple[float, float] | None = None,
-                   classes: list | None = None, label_dropout: float = 0.1, inpainting: bool = False) -> Objective:
-    """Objective for ``space``: from a saved ``config`` or the space's defaults (with ``classes`` if labelled)."""
+                   classes: list | None = None, label_dropout: float = 0.1, inpainting: bool = False,
+                   time_tilt: float = 0.0) -> Objective:
+    """Objective for ``space``: from a saved ``config`` or the space's defaults (with ``classes`` if labelled;
+    ``time_tilt``: the tilt of the training-time density, see :mod:`heatwalk.core.schedule`)."""
     if config is None:
         name = space.objective_name
         if name not in OBJECTIVES:
@@ -33,6 +35,11 @@ def make_objective(space, config: dict | None = None, time_range: tuple[float, f
             config.update(classes=list(classes), label_dropout=label_dropout)
         if inpainting:
             config["inpainting"] = True
+        if time_tilt != 0.0:
+            if not OBJECTIVES[name].supports_time_tilt:
+                raise InputError(f"time_tilt: the {name} objective draws its times without importance weights; "
+                                 f"time_tilt must be 0 for it, got {time_tilt}", field="time_tilt")
+            config["schedule"] = {**config["schedule"], "tilt": time_tilt}
     name = config["name"]
     if name not in OBJECTIVES:
         raise InputError(f"unknown objective {name!r}; known: {sorted(OBJECTIVES)}", field="objective")

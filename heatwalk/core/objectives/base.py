@@ -49,9 +49,16 @@ class Objective(ABC):
     likelihood_is_bound: ClassVar[bool] = False
     #: how ``log_prob`` is computed, in words (reports print it)
     likelihood_method: ClassVar[str] = ""
+    #: True when the loss applies the importance weights of a tilted time density (``TimeSchedule.tilt``)
+    supports_time_tilt: ClassVar[bool] = False
+    #: True when the size rule of ``heatwalk.fit`` sets the default network's ``hidden`` and ``depth``
+    sized_by_data: ClassVar[bool] = False
 
     def __init__(self, space, schedule: TimeSchedule, classes: list | None = None, label_dropout: float = 0.1,
                  inpainting: bool = False):
+        if getattr(schedule, "tilt", 0.0) != 0.0 and not self.supports_time_tilt:
+            raise InputError(f"time_tilt: the {self.name} objective draws its times without importance weights; "
+                             f"time_tilt must be 0 for it, got {schedule.tilt}", field="time_tilt")
         self.space = space
         self.schedule = schedule
         self.classes = None if classes is None else list(classes)

@@ -19,8 +19,9 @@ from heatwalk.samplers.flow_ode import log_likelihood
 class ScoreMatching(Objective):
     """Denoising score matching on the exact conditional score of the space's heat kernel.
 
-    For a data batch x_0: draw t ~ log-uniform[t_min, t_max], x_t ~ p_t(· | x_0)
-    exactly, and minimise
+    For a data batch x_0: draw t ~ log-uniform[t_min, t_max] (or from the schedule's tilted
+    density q, each row then weighted by 1/q: the same objective, see
+    :mod:`heatwalk.core.schedule`), x_t ~ p_t(· | x_0) exactly, and minimise
 
         E || sqrt(t) s_θ(x_t, t) - sqrt(t) ∇ log p_t(x_t | x_0) ||²_g / dim
 
@@ -34,16 +35,20 @@ class ScoreMatching(Objective):
     likelihood_method = "probability-flow ODE (exact divergence; Hutchinson's estimator above 3 dimensions)"
     field_kind = "score"
     default_sampler = "geodesic_random_walk"
+    supports_time_tilt = True
+    sized_by_data = True
 
     def __init__(self, space, schedule, classes=None, label_dropout: float = 0.1, inpainting: bool = False):
         super().__init__(space, schedule, classes, label_dropout, inpainting)
         self._out_dim = math.prod(space.ambient_shape)
 
-    def default_network(self, hidden: int = 256, depth: int = 3, **extra) -> nn.Module:
+    def default_network(self, hidden: int = 256, depth: int = 3, fourier_features: int = 0,
+                        fourier_scale: float = 1.0, **extra) -> nn.Module:
         if extra:
-            raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, hidden",
-                             field="network")
-        return MLPDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth)
+            raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, "
+                             f"fourier_features, fourier_scale, hidden", field="network")
+        return MLPDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth,
+                           fourier_features, fourier_scale)
 
     def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor, labels=None, known=None) -> torch.Tensor:
         """sqrt(t) s_θ(x, t) as a float64 tangent vector at x (``known``: coordinate flags of inpainting models)."""
@@ -59,13 +64,13 @@ class ScoreMatching(Objective):
              labels: torch.Tensor | None = None) -> dict:
         """Dropped labels, times t, exact draws x_t ~ p_t(· | x_0) and (inpainting) known-coordinate masks."""
         labels = self.drop_labels(labels, generator)
-        t = self.schedule.sample(x0.shape[0], generator)
+        t, weight = self.schedule.sample_weighted(x0.shape[0], generator)
         xt = self.space.sample_forward(x0, t, generator)
         known = None
         if self.inpainting:
             known = self.random_known(x0.shape[0], generator)
             xt = torch.where(known, x0, xt)
-        return {"x0": x0, "labels": labels, "t": t, "xt": xt, "known": known}
+        return {"x0": x0, "labels": labels, "t": t, "xt": xt, "known": known, "weight": weight}
 
     def share_loss(self, net: nn.Module, drawn: dict, share: Share = WHOLE) -> torch.Tensor:
         """σ²-weighted squared score error per row (class docstring), averaged by ``share.mean``."""
@@ -75,7 +80,11 @@ class ScoreMatching(Objective):
         diff = self.scaled_score(net, xt, t, labels, known) - target
         if known is not None:
             diff = torch.where(known, 0.0, diff)
-        return share.mean(self.space.inner(xt, diff, diff), n) / self.space.dim
+        per_row = self.space.inner(xt, diff, diff)
+        weight = drawn.get("weight")
+        if weight is not None and self.schedule.tilt != 0.0:  # importance weights of a tilted time density
+            per_row = per_row * share.take(weight, n).to(per_row.dtype)
+        return share.mean(per_row, n) / self.space.dim
 
     def log_prob(self, net: nn.Module, x, labels: torch.Tensor | None = None, **options) -> dict:
         """Exact log-likelihood (nats, reference measure of the space) by the probability-flow ODE.

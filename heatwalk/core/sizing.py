@@ -1,0 +1,69 @@
+"""Rules that choose training settings from the data: its number of points n and its dimension d.
+
+They read nothing but n and d (never the data's values or a benchmark), so they apply to data not
+seen when they were written.
+
+- ``fourier_scale(n, d, spread) = n^(1/(d+4)) / spread``: the standard deviation of the frequencies of random
+  Fourier features, in inverse embedding units. spread · n^(-1/(d+4)) is Silverman's rule-of-thumb rate of the
+  kernel-density bandwidth for n points in d dimensions whose coordinates have standard deviation spread
+  (Silverman 1986, *Density Estimation*, eq. 3.28 and 4.14, without the constant factor of order 1), so the
+  features resolve the finest structure that n points of that spread can support. spread is measured on the
+  data's embedding: the root mean of the per-coordinate variances of ``space.embed(x)``.
+- ``size_rule(n, d)``: training steps and network width from n. Steps grow as the square root of the
+  data size, ``3000 · clip(sqrt(n / 4000), 1, 4)`` rounded to hundreds (3,000 steps up to 4,000
+  points, 12,000 from 64,000), so larger data get more passes before the fit is stopped, but a run
+  never costs more than 4x the fixed default; width 256 below 8,000 points and 512 from there (depth
+  3), as a larger data set supports more parameters before it is over-fitted.
+"""
+
+from __future__ import annotations
+
+import math
+
+from heatwalk.errors import InputError
+
+#: steps of the fixed default, and the size rule's range of multiples of it
+BASE_STEPS = 3000
+STEP_FACTOR_RANGE = (1.0, 4.0)
+#: data size at which the size rule starts to add steps, and where it widens the network
+STEP_SCALE_POINTS = 4000
+WIDE_FROM_POINTS = 8000
+
+
+def _need_size(n, what):
+    if n is None:
+        raise InputError(f"{what} is chosen from the number of data points, which an iterable of batches does not "
+                         f"tell; give it explicitly", field="data")
+    return int(n)
+
+
+def fourier_scale(n: int | None, dim: int, spread: float = 1.0) -> float:
+    """n^(1/(dim+4)) / spread (module docstring)."""
+    n = _need_size(n, "fourier_scale")
+    if not spread > 0:
+        raise InputError(f"fourier_scale: the data's embedding has no spread ({spread}); give fourier_scale "
+                         f"explicitly", field="network")
+    return float(n) ** (1.0 / (dim + 4)) / float(spread)
+
+
+def embedding_spread(space, points) -> float:
+    """Root mean of the per-coordinate variances of ``space.embed(points)``."""
+    e = space.embed(points).double()
+    return float(e.var(dim=0).mean().sqrt())
+
+
+def size_rule(n: int | None, dim: int) -> dict:
+    """{"steps": ..., "network": {"hidden": ..., "depth": 3}} for n points of dimension dim (module docstring)."""
+    n = _need_size(n, "the size rule's steps and width")
+    lo, hi = STEP_FACTOR_RANGE
+    factor = min(max(math.sqrt(n / STEP_SCALE_POINTS), lo), hi)
+    return {"steps": int(round(BASE_STEPS * factor / 100.0)) * 100,
+            "network": {"hidden": 512 if n >= WIDE_FROM_POINTS else 256, "depth": 3}}
+
+
+def resolve_network(network: dict | None, n: int | None, dim: int, spread=None) -> dict | None:
+    """The network options with ``fourier_scale`` filled in by the rule when Fourier features are asked for;
+    ``spread``: a function returning the data's embedding spread (called only then)."""
+    if not network or not network.get("fourier_features") or "fourier_scale" in network:
+        return network
+    return {**network, "fourier_scale": fourier_scale(n, dim, spread() if spread is not None else 1.0)}

@@ -1,0 +1,161 @@
+"""Training levers of heatwalk.fit: time importance sampling, random Fourier features, learning-rate warm-up and
+floor, held-out model choice and the size rule."""
+
+import math
+
+import numpy as np
+import pytest
+import scipy.integrate
+import scipy.stats
+import torch
+
+import heatwalk
+from heatwalk import InputError
+from heatwalk.core import sizing
+from heatwalk.core.objectives import make_objective
+from heatwalk.core.schedule import TimeSchedule
+from heatwalk.core.training import lr_factor
+from heatwalk.spaces import Categories, Torus
+
+from stat_thresholds import p_value_threshold, sigma_threshold
+
+SPACE = Torus(2)
+SMALL = dict(batch_size=64, network={"hidden": 16, "depth": 2}, progress=False)
+
+
+def _data(n=200, seed=0):
+    return SPACE.random_uniform(n, torch.Generator().manual_seed(seed))
+
+
+# ----- time importance sampling --------------------------------------------------------------------------------
+@pytest.mark.parametrize("tilt", [0.6, -0.6])
+def test_tilted_times_give_the_same_expectation_as_log_uniform_ones(tilt):
+    """E_q[w f(t)] equals the log-uniform expectation of f, computed by scipy's quad on the log-time fraction.
+
+    Reference: scipy.integrate.quad of f(t(u)) over u in [0, 1] (t(u) = t_min (t_max/t_min)^u). Check: the
+    Monte Carlo mean of 200,000 weighted draws within sigma_threshold(1e-6) ≈ 4.9 of its standard error
+    (failure rate 1e-6 for a correct implementation).
+    """
+    sched = TimeSchedule(1e-4, 20.0, tilt=tilt)
+    f = lambda t: 1.0 / (1.0 + t) + 0.3 * np.log(t) ** 2  # noqa: E731 - a smooth function of t with weight at both ends
+    span = math.log(20.0) - math.log(1e-4)
+    exact, _ = scipy.integrate.quad(lambda u: f(1e-4 * math.exp(span * u)), 0.0, 1.0, epsabs=1e-12)
+    t, w = sched.sample_weighted(200_000, torch.Generator().manual_seed(1))
+    values = (w * torch.as_tensor(f(t.numpy()))).numpy()
+    se = values.std(ddof=1) / math.sqrt(values.size)
+    assert abs(values.mean() - exact) < sigma_threshold(1e-6) * se
+    # and the draws follow q: the log-time fraction has CDF F(u) = (1 + a) u - a u^2 (scipy's exact KS p-value)
+    u = (torch.log(t) - math.log(1e-4)) / span
+    p = scipy.stats.kstest(u.numpy()[:20_000], lambda v: (1 + tilt) * v - tilt * v * v).pvalue
+    assert p > p_value_threshold(1e-6)
+
+
+def test_zero_tilt_reproduces_the_log_uniform_draws_with_unit_weights():
+    sched = TimeSchedule(1e-4, 20.0)
+    t0 = sched.sample(1000, torch.Generator().manual_seed(3))
+    t1, w = sched.sample_weighted(1000, torch.Generator().manual_seed(3))
+    assert torch.equal(t0, t1) and torch.equal(w, torch.ones_like(w))
+    assert "tilt" not in sched.config() and TimeSchedule(1e-4, 20.0, tilt=0.5).config()["tilt"] == 0.5
+
+
+def test_tilted_fit_records_its_tilt_and_other_objectives_refuse_it(tmp_path):
+    model = heatwalk.fit(SPACE, _data(), steps=5, time_tilt=0.5, **SMALL)
+    assert model.objective.schedule.tilt == 0.5 and model.record["levers"]["time_tilt"] == 0.5
+    model.save(tmp_path / "m")  # the tilt travels with the model (its schedule's config)
+    assert heatwalk.load(tmp_path / "m").objective.schedule.tilt == 0.5
+    with pytest.raises(InputError, match="time_tilt must be 0 for it"):
+        make_objective(Categories(4, 3), time_tilt=0.5)
+    with pytest.raises(InputError, match="time_tilt"):
+        TimeSchedule(1e-4, 20.0, tilt=1.0)
+
+
+# ----- random Fourier features ---------------------------------------------------------------------------------
+def test_fourier_features_are_sin_and_cos_of_fixed_gaussian_frequencies(tmp_path):
+    n = 300
+    model = heatwalk.fit(SPACE, _data(n), steps=3, **{**SMALL, "network": {"hidden": 16, "depth": 2,
+                                                                           "fourier_features": 256}})
+    net = model.network
+    # the rule n^(1/(d+4)) / spread of heatwalk.core.sizing, d = 2 for T², spread of the (cos, sin) embedding
+    spread = torch.cat([torch.cos(_data(n)), torch.sin(_data(n))], dim=1).var(dim=0).mean().sqrt().item()
+    scale = n ** (1 / (2 + 4)) / spread
+    assert net.config()["fourier_scale"] == pytest.approx(scale, rel=1e-12)
+    # 512 N(0, scale²) entries: the sample standard deviation is within 15% (about 5 of its standard errors
+    # 1/sqrt(2·512) ≈ 3%; common-practice normal approximation) of the scale
+    assert net.frequencies.std().item() == pytest.approx(scale, rel=0.15)
+    # the first layer sees [e, sin(eΩ), cos(eΩ), time features]
+    seen = {}
+    net.net[0].register_forward_hook(lambda mod, inp, out: seen.update(x=inp[0]))  # returns None: output kept
+    e = torch.randn(5, 4)
+    net(e, torch.zeros(5, net.config()["time_dim"]))
+    z = e @ net.frequencies
+    assert torch.allclose(seen["x"][:, :4 + 512], torch.cat([e, torch.sin(z), torch.cos(z)], dim=1))
+    # saved with the weights (never trained: a buffer) and loaded back
+    model.save(tmp_path / "m")
+    back = heatwalk.load(tmp_path / "m")
+    assert torch.equal(back.network.frequencies, net.frequencies)
+    assert "frequencies" not in dict(net.named_parameters())
+
+
+# ----- learning-rate schedule ---------------------------------------------------------------------------------
+def test_learning_rate_factor_warms_up_then_decays_to_its_floor():
+    steps = 100
+    for k in (0, 13, 50, 99, 100):  # the defaults are the schedule heatwalk always had
+        assert lr_factor(k, steps) == pytest.approx(0.1 + 0.9 * 0.5 * (1 + math.cos(math.pi * k / steps)), abs=1e-15)
+    assert lr_factor(0, steps, warmup=10) == pytest.approx(0.1 * lr_factor(0, steps), abs=1e-15)
+    assert lr_factor(9, steps, warmup=10) == pytest.approx(lr_factor(9, steps), abs=1e-15)
+    assert lr_factor(steps, steps, floor=0.0) == pytest.approx(0.0, abs=1e-15)
+    model = heatwalk.fit(SPACE, _data(), steps=20, lr_warmup=0.1, lr_floor=0.0, **SMALL)
+    assert model.record["levers"]["lr_warmup"] == 2  # ceil(0.1 · 20)
+    with pytest.raises(InputError, match="lr_floor"):
+        heatwalk.fit(SPACE, _data(), steps=2, lr_floor=1.5, **SMALL)
+
+
+# ----- held-out model choice ----------------------------------------------------------------------------------
+def test_validation_keeps_the_ema_weights_of_the_lowest_held_out_loss():
+    model = heatwalk.fit(SPACE, _data(400), steps=40, validation_fraction=0.25, validation_every=10, **SMALL)
+    v = model.record["validation"]
+    assert v["n_points"] == 100 and [s for s, _ in v["curve"]] == [10, 20, 30, 40]
+    assert v["best_loss"] == min(loss for _, loss in v["curve"])
+    # the kept weights give the recorded best loss on the same fixed draws (rebuilt as fit draws them)
+    from heatwalk.core.validation import VALIDATION_SEED_OFFSET
+    from heatwalk.core.devices import make_generator
+    perm = torch.randperm(400, generator=torch.Generator().manual_seed(0 + VALIDATION_SEED_OFFSET))
+    held = perm[:100].sort().values
+    drawn = model.objective.draw(_data(400)[held], make_generator(VALIDATION_SEED_OFFSET, torch.device("cpu")))
+    with torch.no_grad():
+        loss = float(model.objective.share_loss(model.network, drawn))
+    assert loss == pytest.approx(v["best_loss"], rel=1e-6)  # float32 network, same operations
+
+
+def test_validation_refuses_checkpoints_and_too_few_points(tmp_path):
+    with pytest.raises(InputError, match="without checkpoint_dir"):
+        heatwalk.fit(SPACE, _data(), steps=2, validation_fraction=0.1, checkpoint_dir=tmp_path, **SMALL)
+    with pytest.raises(InputError, match="leaves 0 for validation"):
+        heatwalk.fit(SPACE, _data(4), steps=2, validation_fraction=0.1, **SMALL)
+
+
+# ----- size rule -------------------------------------------------------------------------------------------------
+def test_size_rule_steps_and_width_grow_with_the_data():
+    assert sizing.size_rule(1000, 2) == {"steps": 3000, "network": {"hidden": 256, "depth": 3}}
+    assert sizing.size_rule(16000, 2) == {"steps": 6000, "network": {"hidden": 512, "depth": 3}}
+    assert sizing.size_rule(10 ** 7, 2)["steps"] == 12000
+    with pytest.raises(InputError, match="number of data points"):
+        sizing.size_rule(None, 2)
+    # explicit steps and network entries win over the rule
+    model = heatwalk.fit(SPACE, _data(), steps=4, size_rule=True, batch_size=32, progress=False,
+                         network={"depth": 2})
+    assert model.record["steps"] == 4 and model.network.config()["hidden"] == 256
+    assert model.network.config()["depth"] == 2 and model.record["size_rule"] == "applied"
+    # on by default; below 4,000 points it gives the fixed defaults (3000 steps, width 256, depth 3)
+    big = SPACE.random_uniform(9000, torch.Generator().manual_seed(1))
+    wide = heatwalk.fit(SPACE, big, steps=2, batch_size=16, progress=False)
+    assert wide.network.config()["hidden"] == 512 and wide.record["size_rule"] == "applied"
+    off = heatwalk.fit(SPACE, big, steps=2, batch_size=16, progress=False, size_rule=False)
+    assert off.network.config()["hidden"] == 256 and off.record["size_rule"] == "off"
+
+
+def test_size_rule_sets_only_the_steps_of_sequence_objectives():
+    space = Categories(4, 3)
+    x = torch.randint(4, (50, 3), generator=torch.Generator().manual_seed(0))
+    model = heatwalk.fit(space, x, size_rule=True, steps=2, batch_size=16, progress=False)
+    assert model.network.config()["d_model"] == 64  # the transformer's own default, untouched by the rule
