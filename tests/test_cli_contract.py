@@ -279,14 +279,13 @@ def test_evaluate_writes_the_per_point_table(tmp_path, capsys, torus_model):
 
     model, data = torus_model
     code, _, err = run(["evaluate", str(model), str(data), "--out", str(tmp_path / "r"), "--per-point",
-                        str(tmp_path / "pp.csv"), "--reverse-steps", "2", "--likelihood-points", "6", "--quiet"],
-                       capsys)
+                        "--reverse-steps", "2", "--likelihood-points", "6", "--quiet"], capsys)
     assert code == 0, err
-    table = read_table(tmp_path / "pp.csv")
-    assert table.names == ["row", "log_likelihood_nats"] and table.values.shape == (6, 2)
-    assert set(table.values[:, 0]) <= set(range(1, 41)) and np.isfinite(table.values[:, 1]).all()
+    table = read_table(tmp_path / "r" / "per_point.csv")
+    assert table.names[:2] == ["point", "log_likelihood_nats"] and table.values.shape == (6, len(table.names))
+    assert set(table.values[:, 0]) <= set(range(0, 40)) and np.isfinite(table.values[:, 1]).all()
     code, _, err = run(["evaluate", str(model), str(data), "--out", str(tmp_path / "r2"), "--per-point",
-                        str(tmp_path / "r2" / "pp.csv"), "--quiet"], capsys)
+                        "--likelihood-points", "0", "--quiet"], capsys)
     assert code == 2 and one_error_line(err) and not (tmp_path / "r2").exists()
 
 
