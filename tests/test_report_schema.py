@@ -37,7 +37,7 @@ def reports(tmp_path_factory):
     assert main(["evaluate", str(d / "sm"), str(d / "s.fasta"), "--out", str(d / "sev"), "--reverse-steps", "5",
                  "--likelihood-points", "8", "--quiet"]) == 0
     load = lambda p: json.loads(p.read_text())  # noqa: E731
-    return (load(d / "demo" / "report.json"), load(d / "ev" / "evaluation.json"), d / "ev",
+    return (load(d / "demo" / "demo_report.json"), load(d / "ev" / "evaluation.json"), d / "ev",
             load(d / "sev" / "evaluation.json"), d)
 
 
@@ -124,7 +124,7 @@ def test_text_report_is_readable(reports):
     seq = (d / "sev" / "evaluation.txt").read_text()
     assert "upper bound on the negative log-likelihood" in seq and "lower bound on log p" in seq
     assert "lower bound (negative ELBO)" not in seq
-    demo = (d / "demo" / "report.txt").read_text()
+    demo = (d / "demo" / "demo_report.txt").read_text()
     assert "uniform vs half A" in demo and "{" not in demo
 
 

@@ -222,7 +222,7 @@ def _num(v, fmt: str, unit: str = "") -> str:
 
 
 def format_table(report: dict) -> str:
-    """The report as readable text (evaluation.txt / report.txt): one line per part, units spelled out."""
+    """The report as readable text (evaluation.txt / demo_report.txt): one line per part, units spelled out."""
     d, m, f = report["data"], report["model"], report["fit"]
     lines = [f"heatwalk {report['command']}: the model {m['folder'] or '(Python API)'} on {report['space']}",
              f"  data          {d['n']} points from {d['file'] or '(Python API)'}"
