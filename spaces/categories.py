@@ -73,8 +73,9 @@ class Categories(FiniteStateSpace):
     length becomes part of the sequence, so the one chain, objective, network and samplers model it
     jointly with the symbols, with no extra machinery, and the likelihood is that of the sequence and
     its length together (the model may give some mass to padded sequences with a symbol after an end
-    state; on valid sequences its likelihood is then a lower bound). ``decode`` reads a sample up to
-    its first end state.
+    state; on valid sequences its likelihood is then a lower bound), but none to the empty sequence: the
+    x_0 support (:meth:`x0_support`) leaves out the end state at position 0. ``decode`` reads a sample up
+    to its first end state.
     """
 
     kind = "categories"
@@ -367,9 +368,13 @@ class Categories(FiniteStateSpace):
         return torch.log(torch.gather(rows, 2, xt.unsqueeze(-1)).squeeze(-1)).sum(-1)
 
     def _x0_support(self, xt, t) -> torch.Tensor:
-        """(n, L, K) bool: data states a with Pr(x_t | x_0 = a) > 0 at each position."""
+        """(n, L, K) bool: data states a with Pr(x_t | x_0 = a) > 0 at each position; with variable lengths
+        never the end state at position 0 (a valid point has at least one symbol)."""
         p = self.transition(t)[:, : self.K, :]  # (n, K, S)
-        return torch.gather(p, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2) > 0
+        support = torch.gather(p, 2, xt.unsqueeze(1).expand(-1, self.K, -1)).transpose(1, 2) > 0
+        if self.end_state is not None:
+            support[:, 0, self.end_state] = False
+        return support
 
     def _posterior(self, xt, x0_probs, s, t) -> torch.Tensor:
         """q(x_s | x_t) = Σ_a p(a) q(x_s | x_t, x_0 = a) at each position, for s < t: (n, L, n_states).

@@ -86,3 +86,18 @@ def test_variable_length_space_checks_and_lengths():
     sp.validate(u)
     # lengths of uniform sequences: P(l) = 3^l / 363; P(5) = 243/363 = 0.669 (4 standard errors: 0.03)
     assert abs(float((sp.lengths(u) == 5).double().mean()) - 243 / 363) < 0.03
+
+
+def test_variable_length_samples_are_never_empty(tmp_path):
+    # a valid point has at least one symbol, so x_0's support leaves out the end state at position 0; an
+    # under-trained model (5 steps) once sampled empty sequences that the FASTA writer then refused
+    import heatwalk
+
+    sp = Categories(3, 6, variable_length=True, alphabet="abc")
+    data = sp.encode(["a", "ab", "abc", "cab", "bbbbbb", "ca"] * 10)
+    xt = torch.full((2, 6), sp.mask_state, dtype=torch.int64)  # every position masked (absorbing chain)
+    assert not sp.x0_support(xt, 0.5)[:, 0, sp.end_state].any()
+    model = heatwalk.fit(sp, data, steps=5, seed=0, progress=False)
+    x = model.sample(200, steps=20, seed=1, progress=False)
+    assert (sp.lengths(x) >= 1).all()
+    assert all(len(s) >= 1 for s in sp.decode(x))
