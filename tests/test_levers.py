@@ -96,6 +96,40 @@ def test_fourier_features_are_sin_and_cos_of_fixed_gaussian_frequencies(tmp_path
     assert "frequencies" not in dict(net.named_parameters())
 
 
+# ----- residual network with time in every block ----------------------------------------------------------------
+def test_residual_network_starts_as_its_input_map_and_reads_the_time_in_every_block(tmp_path):
+    from heatwalk.core.networks.residual import ResidualDenoiser
+
+    net = ResidualDenoiser(4, 17, 4, hidden=32, depth=3)
+    e, tf = torch.randn(6, 4), torch.randn(6, 17)
+    # zero-initialised outer layers: each block is the identity at the start, so the output is
+    # outlet(SiLU(LayerNorm(inlet(e)))) whatever the time
+    with torch.no_grad():
+        expect = net.outlet(torch.nn.functional.silu(net.norm(net.inlet(e))))
+        assert torch.allclose(net(e, tf), expect, atol=1e-6)
+        assert torch.allclose(net(e, tf), net(e, torch.randn(6, 17)), atol=1e-6)
+        for block in net.blocks:  # once the blocks are not the identity, every one of them hears the time
+            torch.nn.init.normal_(block.outer.weight)
+        assert (net(e, tf) - net(e, tf + 1.0)).abs().max().item() > 1e-3
+        net.blocks[1].condition.weight.zero_(); net.blocks[1].condition.bias.zero_()  # noqa: E702
+        for i, block in enumerate(net.blocks):
+            seen = {}
+            hook = block.condition.register_forward_hook(lambda mod, inp, out: seen.update(c=inp[0]))
+            net(e, tf)
+            hook.remove()
+            assert torch.allclose(seen["c"], net.time_embedding(tf)), i
+    # chosen by a fit's network option, saved and loaded as the same class and weights
+    model = heatwalk.fit(SPACE, _data(), steps=3, **{**SMALL, "network": {"hidden": 16, "depth": 2, "residual": True}})
+    assert type(model.network) is ResidualDenoiser and model.network.config()["depth"] == 2
+    model.save(tmp_path / "m")
+    back = heatwalk.load(tmp_path / "m")
+    assert type(back.network) is ResidualDenoiser
+    x = _data(5, seed=9)
+    assert torch.equal(back.log_prob(x)["log_prob"], model.log_prob(x)["log_prob"])
+    with pytest.raises(InputError, match="'residual' must be true or false"):
+        heatwalk.fit(SPACE, _data(), steps=1, **{**SMALL, "network": {"residual": "yes"}})
+
+
 # ----- learning-rate schedule ---------------------------------------------------------------------------------
 def test_learning_rate_factor_warms_up_then_decays_to_its_floor():
     steps = 100

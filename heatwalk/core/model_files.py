@@ -47,6 +47,8 @@ _WIDTH = 2**24
 NETWORK_LIMITS = {
     "mlp": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
             "fourier_features": _WIDTH, "fourier_scale": None},
+    "residual": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
+                 "fourier_features": _WIDTH, "fourier_scale": None},
     "transformer": {"length": _WIDTH, "n_inputs": _WIDTH, "n_outputs": _WIDTH, "time_dim": _WIDTH,
                     "d_model": _WIDTH, "n_layers": 1000, "n_heads": 4096},
 }

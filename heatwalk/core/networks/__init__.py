@@ -10,10 +10,10 @@ from torch import nn
 
 from heatwalk.errors import InputError
 from heatwalk.core.networks.mlp import MLPDenoiser
+from heatwalk.core.networks.residual import ResidualDenoiser
 from heatwalk.core.networks.transformer import TransformerDenoiser
 
-NETWORKS: dict[str, type] = {"mlp": MLPDenoiser, "transformer": TransformerDenoiser}
-
+NETWORKS: dict[str, type] = {"mlp": MLPDenoiser, "residual": ResidualDenoiser, "transformer": TransformerDenoiser}
 
 
 def build_network(name: str, config: dict) -> nn.Module:

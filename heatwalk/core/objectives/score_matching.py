@@ -10,6 +10,7 @@ from torch import nn
 from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gradient
 from heatwalk.core.fields import ScoreField
 from heatwalk.core.networks.mlp import MLPDenoiser
+from heatwalk.core.networks.residual import ResidualDenoiser
 from heatwalk.core.objectives.base import Objective
 from heatwalk.core.parallel import WHOLE, Share
 from heatwalk.errors import InputError
@@ -43,12 +44,17 @@ class ScoreMatching(Objective):
         self._out_dim = math.prod(space.ambient_shape)
 
     def default_network(self, hidden: int = 256, depth: int = 3, fourier_features: int = 0,
-                        fourier_scale: float = 1.0, **extra) -> nn.Module:
+                        fourier_scale: float = 1.0, residual: bool = False, **extra) -> nn.Module:
+        """The MLP (``residual=False``) or the residual network with time in every block
+        (:class:`heatwalk.core.networks.residual.ResidualDenoiser`), same size options."""
         if extra:
             raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, "
-                             f"fourier_features, fourier_scale, hidden", field="network")
-        return MLPDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth,
-                           fourier_features, fourier_scale)
+                             f"fourier_features, fourier_scale, hidden, residual", field="network")
+        if not isinstance(residual, bool):
+            raise InputError(f"network option 'residual' must be true or false, got {residual!r}", field="network")
+        cls = ResidualDenoiser if residual else MLPDenoiser
+        return cls(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth, fourier_features,
+                   fourier_scale)
 
     def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor, labels=None, known=None) -> torch.Tensor:
         """sqrt(t) s_θ(x, t) as a float64 tangent vector at x (``known``: coordinate flags of inpainting models)."""
