@@ -66,6 +66,21 @@ def test_unknown_config_key_is_one_line_with_the_nearest_key(tmp_path, angles_cs
     assert not (tmp_path / "m").exists()
 
 
+def test_out_of_range_config_values_name_the_file_and_key_not_the_flag(tmp_path, angles_csv, capsys):
+    cfg = tmp_path / "fit.toml"
+    base = [str(angles_csv), "--out", str(tmp_path / "m"), "--config", str(cfg)]
+    cfg.write_text("train_steps = 0\n")  # a fit flag's declared range
+    code, out, err = run(["fit", "--space", "torus", *base], capsys)
+    assert code == 2 and err.count("\n") == 1 and f"{cfg}: key 'train_steps'" in err and "--train-steps" not in err
+    cfg.write_text("zero_replacement = -1.0\n")  # a space option's declared range
+    code, out, err = run(["fit", "--space", "simplex", *base], capsys)
+    assert code == 2 and f"{cfg}: key 'zero_replacement'" in err and "--zero-replacement" not in err
+    cfg.write_text("train_steps = 5\n")  # the same value given on the command line is named by its flag
+    code, out, err = run(["fit", "--space", "torus", "--train-steps", "0", *base], capsys)
+    assert code == 2 and "--train-steps must be" in err and "fit.toml" not in err
+    assert not (tmp_path / "m").exists()
+
+
 def test_usage_errors_are_one_line(capsys):
     for argv in (["fit", "--train-steps", "x"], ["sample"], ["bogus"], []):
         code, out, err = run(argv, capsys)

@@ -55,8 +55,10 @@ def _check_value(path, key, value, kind):
 
 
 def merge_config(args, path, kinds: dict[str, type]) -> None:
-    """Set every option of ``args`` that the command line left unset (None) from the config file."""
+    """Set every option of ``args`` that the command line left unset (None) from the config file; the keys so
+    set are recorded in ``args.config_origin`` ({key: path}), so that range errors name the file and key."""
     table = read_config(path)
+    origin = {}
     for key, value in table.items():
         if key not in kinds or key in ("config", "dry_run"):
             near = difflib.get_close_matches(key, [k for k in kinds if k not in ("config", "dry_run")], n=1)
@@ -67,6 +69,8 @@ def merge_config(args, path, kinds: dict[str, type]) -> None:
             value = ",".join(value)
         if getattr(args, key, None) is None:
             setattr(args, key, value)
+            origin[key] = str(path)
+    args.config_origin = origin
 
 
 def _toml_value(value) -> str:

@@ -248,22 +248,25 @@ def apply_defaults(args, flags: list[Flag]) -> None:
         if getattr(args, f.name, None) is None:
             setattr(args, f.name, False if f.kind is bool else f.default)
     for f in flags:
-        check_range(f, getattr(args, f.name, None))
+        check_range(f, getattr(args, f.name, None), args)
 
 
-def check_range(declared, value):
+def check_range(declared, value, args=None):
     """``value`` of the flag or space option ``declared`` checked against its declared range; returns it.
 
     ``declared`` is a :class:`Flag` or a :class:`heatwalk.spaces.Option` (both have ``kind``, ``flag``,
     ``minimum``, ``maximum``, ``open_minimum``, ``open_maximum``). Floats must be finite; None (not given) passes. The error
-    names the flag.
+    names the flag, or the config file and key when ``args`` says the value came from one (``args.config_origin``,
+    set by :func:`heatwalk.frontend.config_file.merge_config`).
     """
     from heatwalk.checks import check_int, check_number
 
     if value is None or declared.kind not in (int, float):
         return value
+    origin = getattr(args, "config_origin", {}).get(declared.name) if args is not None else None
+    name = declared.flag if origin is None else f"{origin}: key {declared.name!r}"
     lo, hi = declared.minimum, declared.maximum
     if declared.kind is int:
-        return check_int(declared.flag, value, minimum=lo, maximum=hi)
-    return check_number(declared.flag, value, minimum=lo, maximum=hi, open_minimum=declared.open_minimum,
+        return check_int(name, value, minimum=lo, maximum=hi)
+    return check_number(name, value, minimum=lo, maximum=hi, open_minimum=declared.open_minimum,
                         open_maximum=declared.open_maximum)

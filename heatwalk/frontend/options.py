@@ -102,7 +102,7 @@ def chosen_options(args, space_cls) -> dict:
             takes = ", ".join(o.flag for o in (*space_cls.file_options, *space_cls.build_options)) or "none"
             raise InputError(f"{decls[0][1].flag} does not apply to --space {space_cls.kind} "
                              f"(its options: {takes})", field=name)
-        chosen[name] = check_range(declared[name], value)
+        chosen[name] = check_range(declared[name], value, args)
     return chosen
 
 
