@@ -196,6 +196,21 @@ def test_sequences_model_alone_draws_samples_and_says_so(files, tmp_path, capsys
     assert "50 samples drawn from the model" in text
 
 
+@pytest.mark.parametrize("length", [1, 2, 3, 40])
+def test_sequence_positions_are_ticked_at_whole_numbers_only(length):
+    from heatwalk.spaces import Categories
+
+    x = torch.randint(0, 4, (30, length), generator=torch.Generator().manual_seed(length))
+    fig = plots.plot_sequences(Categories(4, length), x, x)
+    fig.canvas.draw()
+    for ax in fig.axes:
+        if ax.get_xlabel() != "position":
+            continue
+        lo, hi = ax.get_xlim()
+        shown = [t for t in ax.get_xticks() if lo <= t <= hi]
+        assert shown and all(float(t).is_integer() and 1 <= t <= length for t in shown), shown
+
+
 def test_loss_curve(files, tmp_path, capsys, figures):
     out = tmp_path / "loss.png"
     _plot(["--model", str(files / "torus-model"), "--losses", "--out", str(out), "--size", "640,480"], capsys)

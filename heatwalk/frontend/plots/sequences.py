@@ -100,7 +100,7 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
         im = ax.imshow(f, aspect="auto", interpolation="nearest", cmap=DIFFERENCE_CMAP if diff else FREQUENCY_CMAP,
                        vmin=-top if diff else 0.0, vmax=top, extent=(0.5, length + 0.5, space.K - 0.5, -0.5))
         ax.set_yticks(range(space.K), symbols if space.K <= 40 else None, fontsize="small")
-        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True, min_n_ticks=1))
         ax.set_xlabel("position")
         ax.set_ylabel("symbol")
         n = next(c.shape[0] for s, c in sets if s == name) if not diff else None
