@@ -122,6 +122,7 @@ class SO3(IsotropicKernel, Manifold):
     """
 
     kind = "so3"
+    bounded_embedding = True
     dim = 3
     ambient_shape = (3, 3)
     plot_kind = "rotations"

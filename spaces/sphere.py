@@ -42,6 +42,7 @@ class Sphere(IsotropicKernel, Manifold):
     """
 
     kind = "sphere"
+    bounded_embedding = True
     file_options = (Option("lonlat", bool, "S^2 as two columns longitude, latitude in degrees (in that order; "
                            "right ascension and declination the same way)"),)
     plot_kind = "directions"

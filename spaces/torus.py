@@ -30,6 +30,7 @@ class Torus(Manifold):
     """
 
     kind = "torus"
+    bounded_embedding = True
     file_options = (Option("degrees", bool, "angles are in degrees (default: radians)"),)
     capabilities = frozenset({"angles", "coordinates"})
     plot_kind = "angles"

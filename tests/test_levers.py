@@ -70,10 +70,12 @@ def test_tilted_fit_records_its_tilt_and_other_objectives_refuse_it(tmp_path):
 
 
 # ----- random Fourier features ---------------------------------------------------------------------------------
-def test_fourier_features_are_sin_and_cos_of_fixed_gaussian_frequencies(tmp_path):
+@pytest.mark.parametrize("residual", [False, True])
+def test_fourier_features_are_sin_and_cos_of_fixed_gaussian_frequencies(tmp_path, residual):
     n = 300
     model = heatwalk.fit(SPACE, _data(n), steps=3, **{**SMALL, "network": {"hidden": 16, "depth": 2,
-                                                                           "fourier_features": 256}})
+                                                                           "fourier_features": 256,
+                                                                           "residual": residual}})
     net = model.network
     # the rule n^(1/(d+4)) / spread of heatwalk.core.sizing, d = 2 for T², spread of the (cos, sin) embedding
     spread = torch.cat([torch.cos(_data(n)), torch.sin(_data(n))], dim=1).var(dim=0).mean().sqrt().item()
@@ -82,9 +84,9 @@ def test_fourier_features_are_sin_and_cos_of_fixed_gaussian_frequencies(tmp_path
     # 512 N(0, scale²) entries: the sample standard deviation is within 15% (about 5 of its standard errors
     # 1/sqrt(2·512) ≈ 3%; common-practice normal approximation) of the scale
     assert net.frequencies.std().item() == pytest.approx(scale, rel=0.15)
-    # the first layer sees [e, sin(eΩ), cos(eΩ), time features]
+    # the first layer sees [e, sin(eΩ), cos(eΩ)] (the MLP: then the time features)
     seen = {}
-    net.net[0].register_forward_hook(lambda mod, inp, out: seen.update(x=inp[0]))  # returns None: output kept
+    (net.inlet if residual else net.net[0]).register_forward_hook(lambda mod, inp, out: seen.update(x=inp[0]))  # returns None: output kept
     e = torch.randn(5, 4)
     net(e, torch.zeros(5, net.config()["time_dim"]))
     z = e @ net.frequencies
@@ -170,22 +172,53 @@ def test_validation_refuses_checkpoints_and_too_few_points(tmp_path):
 
 # ----- size rule -------------------------------------------------------------------------------------------------
 def test_size_rule_steps_and_width_grow_with_the_data():
-    assert sizing.size_rule(1000, 2) == {"steps": 3000, "network": {"hidden": 256, "depth": 3}}
-    assert sizing.size_rule(16000, 2) == {"steps": 6000, "network": {"hidden": 512, "depth": 3}}
-    assert sizing.size_rule(10 ** 7, 2)["steps"] == 12000
+    from heatwalk.core.networks.mlp import MLPDenoiser
+    from heatwalk.core.networks.residual import ResidualDenoiser
+
+    bounded = dict(bounded=True)
+    assert sizing.size_rule(1000, 2, **bounded) == {"steps": 3000,
+                                                    "network": {"residual": True, "hidden": 128, "depth": 3}}
+    assert sizing.size_rule(16000, 2, **bounded) == {"steps": 12000,
+                                                     "network": {"residual": True, "hidden": 256, "depth": 3}}
+    assert sizing.size_rule(4000, 2)["steps"] == 6000 and sizing.size_rule(10 ** 7, 2)["steps"] == 18000
+    # unbounded features (R^d, clr): the MLP, twice as wide
+    assert sizing.size_rule(1000, 2) == {"steps": 3000, "network": {"residual": False, "hidden": 256, "depth": 3}}
+    assert sizing.size_rule(9000, 5)["network"] == {"residual": False, "hidden": 512, "depth": 3}
     with pytest.raises(InputError, match="number of data points"):
         sizing.size_rule(None, 2)
     # explicit steps and network entries win over the rule
     model = heatwalk.fit(SPACE, _data(), steps=4, size_rule=True, batch_size=32, progress=False,
                          network={"depth": 2})
-    assert model.record["steps"] == 4 and model.network.config()["hidden"] == 256
+    assert model.record["steps"] == 4 and model.network.config()["hidden"] == 128
     assert model.network.config()["depth"] == 2 and model.record["size_rule"] == "applied"
-    # on by default; below 4,000 points it gives the fixed defaults (3000 steps, width 256, depth 3)
+    assert type(model.network) is ResidualDenoiser
+    plain = heatwalk.fit(SPACE, _data(), steps=2, batch_size=32, progress=False, network={"residual": False})
+    assert type(plain.network) is MLPDenoiser and plain.network.config()["hidden"] == 128
+    # on by default; from 8,000 points the width doubles
     big = SPACE.random_uniform(9000, torch.Generator().manual_seed(1))
     wide = heatwalk.fit(SPACE, big, steps=2, batch_size=16, progress=False)
-    assert wide.network.config()["hidden"] == 512 and wide.record["size_rule"] == "applied"
+    assert wide.network.config()["hidden"] == 256 and wide.record["size_rule"] == "applied"
+    assert type(wide.network) is ResidualDenoiser
+    # off: the fixed defaults of the objective (MLP, width 256, depth 3, 3000 steps)
     off = heatwalk.fit(SPACE, big, steps=2, batch_size=16, progress=False, size_rule=False)
     assert off.network.config()["hidden"] == 256 and off.record["size_rule"] == "off"
+    assert type(off.network) is MLPDenoiser
+
+
+def test_size_rule_picks_the_residual_network_only_where_the_embedding_is_bounded():
+    from heatwalk.core.networks.mlp import MLPDenoiser
+    from heatwalk.core.networks.residual import ResidualDenoiser
+    from heatwalk.spaces import SO3, Euclidean, Simplex, Sphere
+
+    g = torch.Generator().manual_seed(4)
+    for space, cls in ((Torus(2), ResidualDenoiser), (Sphere(2), ResidualDenoiser), (SO3(), ResidualDenoiser),
+                       (Euclidean(2), MLPDenoiser), (Simplex(3), MLPDenoiser)):
+        x = space.random_uniform(40, g) if space.kind not in ("euclidean", "simplex") else space.prior_sample(40, g)
+        model = heatwalk.fit(space, x, steps=1, batch_size=8, progress=False)
+        assert type(model.network) is cls, space
+        e = space.embed(x)  # what "bounded" means: the features' norm is the same order for any point
+        if cls is ResidualDenoiser:
+            assert float(e.norm(dim=-1).max()) <= 3.0 + 1e-12  # |cos,sin| = sqrt(n), |unit vector| = 1, |R|_F = sqrt 3
 
 
 def test_size_rule_sets_only_the_steps_of_sequence_objectives():

@@ -311,7 +311,7 @@ def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Setting
     network = dict(o.network) if o.network else None
     steps = o.steps
     if o.size_rule and n_data is not None:
-        rule = sizing.size_rule(n_data, dim)
+        rule = sizing.size_rule(n_data, dim, getattr(space, "bounded_embedding", False))
         steps = rule["steps"] if steps is None else steps
         if objective.sized_by_data:
             network = {**rule["network"], **(network or {})}

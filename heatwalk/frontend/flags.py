@@ -94,15 +94,16 @@ def fit_flags() -> list[Flag]:
         Flag("delimiter", str, "cell separator of a text table (default: detected from , tab ; |)", metavar="CHAR"),
         Flag("out", str, "model folder to write", metavar="FOLDER"),
         Flag("overwrite", bool, "replace an existing model folder"),
-        Flag("train_steps", int, "training steps (Adam); default: from the number of points, 3000 up to 4,000 "
-             "points, then 3000·sqrt(n/4000) up to 12,000", metavar="N", minimum=1, maximum=MAX_STEPS),
+        Flag("train_steps", int, "training steps (Adam); default: from the number of points, 3000 up to 1,000 "
+             "points, then 3000·sqrt(n/1000) up to 18,000", metavar="N", minimum=1, maximum=MAX_STEPS),
         Flag("batch_size", int, "training batch size (the global batch across processes)", default=512, metavar="N",
              minimum=1, maximum=MAX_BATCH),
         Flag("learning_rate", float, "Adam learning rate, cosine-decayed to a tenth", default=2e-3, metavar="LR",
              minimum=0, open_minimum=True),
-        Flag("hidden", int, "network width (default: manifolds 256, 512 from 8,000 points; sequences 64)",
+        Flag("hidden", int, "network width (default: manifolds 128, 256 from 8,000 points, residual blocks; "
+             "sequences 64)",
              metavar="N", minimum=1, maximum=MAX_WIDTH),
-        Flag("depth", int, "network depth (hidden layers; transformer layers for sequences)", metavar="N",
+        Flag("depth", int, "network depth (residual blocks; transformer layers for sequences)", metavar="N",
              minimum=1, maximum=MAX_DEPTH),
         _seed("seed of every random draw (same seed, same model)"),
         Flag("labels", str, "column holding a class name per row: fit a labelled model (for --label at sampling)",

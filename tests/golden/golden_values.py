@@ -65,7 +65,8 @@ def _fit_and_sample(name, space, out):
     import heatwalk
 
     data = _data_for(name, space)
-    model = heatwalk.fit(space, data, network={"hidden": 32, "depth": 2}, **FIT)
+    # the MLP the values were recorded with (the size rule's default network became the residual one later)
+    model = heatwalk.fit(space, data, network={"hidden": 32, "depth": 2, "residual": False}, **FIT)
     for k, p in model.network.state_dict().items():
         out[f"{name}/weights/{k}"] = p
     for sampler, opts in (("geodesic_random_walk", {}), ("predictor_corrector", {}),

@@ -56,6 +56,7 @@ class ResidualDenoiser(nn.Module):
         self._config = dict(in_dim=in_dim, time_dim=time_dim, out_dim=out_dim, hidden=hidden, depth=depth)
         if fourier_features:
             self._config.update(fourier_features=int(fourier_features), fourier_scale=float(fourier_scale))
+            # cpu: networks are initialised on the CPU from the seed, then moved
             self.register_buffer("frequencies", fourier_scale * torch.randn(in_dim, fourier_features))
         else:
             self.frequencies = None
