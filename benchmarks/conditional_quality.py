@@ -108,7 +108,7 @@ def w1_figure(samples, ref, floor: dict) -> dict:
 
 def fit_settings(cfg, sz) -> dict:
     return dict(steps=max(50, int(cfg["steps"] * sz["step_scale"])), batch_size=sz["batch"], seed=SEED,
-                network={"hidden": cfg["hidden"], "depth": cfg["depth"]}, progress=False)
+                network={"hidden": cfg["hidden"], "depth": cfg["depth"], "residual": False}, progress=False)
 
 
 def fit_record(model, kw) -> dict:

@@ -170,7 +170,8 @@ def run_target(target, cfg, sz, progress):
         row["overlap_bound"] = target.overlap_bound()
 
     # (a) heatwalk
-    net = {} if is_seq else {"hidden": cfg["hidden"], "depth": cfg["depth"]}
+    # the MLP its table was made with (the size rule would pick the residual network on bounded spaces)
+    net = {} if is_seq else {"hidden": cfg["hidden"], "depth": cfg["depth"], "residual": False}
     kw = dict(steps=steps, batch_size=sz["batch"] if not is_seq else 256, seed=SEED, network=net,
               progress=progress)
     if cfg["time_range"] is not None:

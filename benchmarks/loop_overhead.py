@@ -48,7 +48,7 @@ def hand_loop(space, data, steps, batch, lr, seed):
 def heatwalk_loop(space, data, steps, batch, lr, seed):
     t0 = time.perf_counter()
     heatwalk.fit(space, data, steps=steps, batch_size=batch, lr=lr, seed=seed, progress=True,
-                 network={"hidden": 256, "depth": 3})
+                 network={"hidden": 256, "depth": 3, "residual": False})
     return steps / (time.perf_counter() - t0)
 
 

@@ -36,7 +36,7 @@ import torch
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent / "tests"))
 
-NETWORK = {"hidden": 256, "depth": 3}
+NETWORK = {"hidden": 256, "depth": 3, "residual": False}  # the MLP
 
 
 def _data(n: int, seed: int = 1) -> torch.Tensor:
@@ -135,7 +135,7 @@ MEMORY_SCRIPT = textwrap.dedent("""
                 return int(line.split()[1]) * 1024
 
     mode, path, steps, batch = sys.argv[1], sys.argv[2], int(sys.argv[3]), int(sys.argv[4])
-    net = {"hidden": 256, "depth": 3}
+    net = {"hidden": 256, "depth": 3, "residual": False}
     heatwalk.fit(Torus(2), torch.zeros(64, 2, dtype=torch.float64), steps=2, batch_size=32, progress=False,
                  network=net)
     peak, done = [0], [False]
