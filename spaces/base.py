@@ -225,9 +225,9 @@ class Space(ABC):
     reference_measure: ClassVar[str] = "the space's base measure"
     #: largest admissible diffusion time (finite chains: 1, the prior)
     max_time: ClassVar[float] = math.inf
-    #: ``embed`` has a bounded norm (cos/sin of angles, unit vectors, rotation matrices), so a network may
-    #: normalise its features without losing where the point is (the size rule's residual network does;
-    #: heatwalk.core.sizing). False where the features grow without bound (R^d, clr of compositions).
+    #: ``embed`` has a bounded norm (cos/sin of angles, unit vectors, rotation matrices): the size rule then
+    #: gives the residual network, measured to help there and to fail on R^d (heatwalk.core.sizing). False
+    #: where the features grow without bound (R^d, clr of compositions).
     bounded_embedding: ClassVar[bool] = False
     #: intrinsic dimension (0 for a finite set)
     dim: int
