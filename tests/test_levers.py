@@ -113,7 +113,6 @@ def test_residual_network_starts_as_its_input_map_and_reads_the_time_in_every_bl
         for block in net.blocks:  # once the blocks are not the identity, every one of them hears the time
             torch.nn.init.normal_(block.outer.weight)
         assert (net(e, tf) - net(e, tf + 1.0)).abs().max().item() > 1e-3
-        net.blocks[1].condition.weight.zero_(); net.blocks[1].condition.bias.zero_()  # noqa: E702
         for i, block in enumerate(net.blocks):
             seen = {}
             hook = block.condition.register_forward_hook(lambda mod, inp, out: seen.update(c=inp[0]))
