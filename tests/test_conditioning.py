@@ -165,6 +165,11 @@ def test_reconstruction_guidance_on_the_euclidean_gaussian_law():
     free = s[:, 1]
     assert abs(float(free.mean()) - 1.0) < sigma_threshold(6e-5) * 0.5 / math.sqrt(2000) + 0.05
     assert abs(float(free.std()) / 0.5 - 1) < 0.15
+    # the default network on R² (residual with its time skip, heatwalk.core.sizing) samples the marginal law:
+    # standard deviations 1 and sqrt(1.25) within 10% (the fit's accuracy; without the skip they were 25 and 48)
+    assert model.network.config().get("time_skip") is True
+    u = model.sample(2000, steps=200, seed=2, progress=False)
+    assert torch.allclose(u.std(0), torch.tensor([1.0, math.sqrt(1.25)], dtype=u.dtype), rtol=0.1)
 
 
 # ----- products ---------------------------------------------------------------------------------------

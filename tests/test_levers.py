@@ -131,6 +131,31 @@ def test_residual_network_starts_as_its_input_map_and_reads_the_time_in_every_bl
         heatwalk.fit(SPACE, _data(), steps=1, **{**SMALL, "network": {"residual": "yes"}})
 
 
+def test_time_skip_adds_a_time_dependent_linear_map_of_the_features_starting_at_zero(tmp_path):
+    from heatwalk.core.networks.residual import ResidualDenoiser
+
+    torch.manual_seed(0)
+    plain = ResidualDenoiser(3, 17, 2, hidden=16, depth=2)
+    torch.manual_seed(0)
+    net = ResidualDenoiser(3, 17, 2, hidden=16, depth=2, time_skip=True)
+    e, tf = torch.randn(5, 3), torch.randn(5, 17)
+    with torch.no_grad():
+        assert torch.equal(net(e, tf), plain(e, tf))  # M(t) = 0 at the start: the network without the skip
+        torch.nn.init.normal_(net.skip_matrix.weight)
+        m = net.skip_matrix(net.time_embedding(tf)).reshape(5, 2, 3)
+        expect = plain(e, tf) + torch.einsum("nij,nj->ni", m, e)
+        assert torch.allclose(net(e, tf), expect, atol=1e-5)
+        # linear in the features at a fixed time once the blocks' part is taken away
+        assert torch.allclose(net(2 * e, tf) - plain(2 * e, tf), 2 * (net(e, tf) - plain(e, tf)), atol=1e-4)
+    assert net.config()["time_skip"] is True and "time_skip" not in plain.config()
+    model = heatwalk.fit(SPACE, _data(), steps=3, **{**SMALL, "network": {"hidden": 8, "depth": 1, "residual": True,
+                                                                           "time_skip": True}})
+    model.save(tmp_path / "m")
+    back = heatwalk.load(tmp_path / "m")
+    assert back.network.skip_matrix is not None
+    assert torch.equal(back.network.skip_matrix.weight, model.network.skip_matrix.weight)
+
+
 # ----- learning-rate schedule ---------------------------------------------------------------------------------
 def test_learning_rate_factor_warms_up_then_decays_to_its_floor():
     steps = 100
@@ -175,14 +200,15 @@ def test_size_rule_steps_and_width_grow_with_the_data():
     from heatwalk.core.networks.residual import ResidualDenoiser
 
     bounded = dict(bounded=True)
-    assert sizing.size_rule(1000, 2, **bounded) == {"steps": 3000,
-                                                    "network": {"residual": True, "hidden": 128, "depth": 3}}
-    assert sizing.size_rule(16000, 2, **bounded) == {"steps": 12000,
-                                                     "network": {"residual": True, "hidden": 256, "depth": 3}}
+    assert sizing.size_rule(1000, 2, **bounded) == {
+        "steps": 3000, "network": {"residual": True, "time_skip": False, "hidden": 128, "depth": 3}}
+    assert sizing.size_rule(16000, 2, **bounded) == {
+        "steps": 12000, "network": {"residual": True, "time_skip": False, "hidden": 256, "depth": 3}}
     assert sizing.size_rule(4000, 2)["steps"] == 6000 and sizing.size_rule(10 ** 7, 2)["steps"] == 18000
-    # unbounded features (R^d, clr): the MLP, twice as wide
-    assert sizing.size_rule(1000, 2) == {"steps": 3000, "network": {"residual": False, "hidden": 256, "depth": 3}}
-    assert sizing.size_rule(9000, 5)["network"] == {"residual": False, "hidden": 512, "depth": 3}
+    # unbounded features (R^d, clr): the same widths, with the time skip
+    assert sizing.size_rule(1000, 2) == {"steps": 3000,
+                                         "network": {"residual": True, "time_skip": True, "hidden": 128, "depth": 3}}
+    assert sizing.size_rule(9000, 5)["network"] == {"residual": True, "time_skip": True, "hidden": 256, "depth": 3}
     with pytest.raises(InputError, match="number of data points"):
         sizing.size_rule(None, 2)
     # explicit steps and network entries win over the rule
@@ -204,20 +230,31 @@ def test_size_rule_steps_and_width_grow_with_the_data():
     assert type(off.network) is MLPDenoiser
 
 
-def test_size_rule_picks_the_residual_network_only_where_the_embedding_is_bounded():
+def test_size_rule_adds_the_time_skip_only_where_the_embedding_is_unbounded():
     from heatwalk.core.networks.mlp import MLPDenoiser
     from heatwalk.core.networks.residual import ResidualDenoiser
     from heatwalk.spaces import SO3, Euclidean, Simplex, Sphere
 
     g = torch.Generator().manual_seed(4)
-    for space, cls in ((Torus(2), ResidualDenoiser), (Sphere(2), ResidualDenoiser), (SO3(), ResidualDenoiser),
-                       (Euclidean(2), MLPDenoiser), (Simplex(3), MLPDenoiser)):
+    for space, skip in ((Torus(2), False), (Sphere(2), False), (SO3(), False), (Euclidean(2), True),
+                        (Simplex(3), True)):
         x = space.random_uniform(40, g) if space.kind not in ("euclidean", "simplex") else space.prior_sample(40, g)
         model = heatwalk.fit(space, x, steps=1, batch_size=8, progress=False)
-        assert type(model.network) is cls, space
+        assert type(model.network) is ResidualDenoiser, space
+        assert model.network.config().get("time_skip", False) is skip, space
+        assert (model.network.skip_matrix is not None) is skip, space
         e = space.embed(x)  # what "bounded" means: the features' norm is the same order for any point
-        if cls is ResidualDenoiser:
+        if not skip:
             assert float(e.norm(dim=-1).max()) <= 3.0 + 1e-12  # |cos,sin| = sqrt(n), |unit vector| = 1, |R|_F = sqrt 3
+    # an MLP asked for on an unbounded space does not get the rule's skip; the skip alone on an MLP is refused
+    x = Euclidean(2).prior_sample(40, g)
+    mlp = heatwalk.fit(Euclidean(2), x, steps=1, batch_size=8, progress=False, network={"residual": False})
+    assert type(mlp.network) is MLPDenoiser
+    with pytest.raises(InputError, match="'time_skip' belongs to the residual network"):
+        heatwalk.fit(Euclidean(2), x, steps=1, batch_size=8, progress=False,
+                     network={"residual": False, "time_skip": True})
+    with pytest.raises(InputError, match="'time_skip' must be true or false"):
+        heatwalk.fit(Euclidean(2), x, steps=1, batch_size=8, progress=False, network={"time_skip": 1})
 
 
 def test_size_rule_sets_only_the_steps_of_sequence_objectives():

@@ -115,6 +115,19 @@ def test_model_json_is_checked_against_its_schema(folder, edit, message):
     _one_line(e)
 
 
+def test_a_residual_network_option_that_is_not_a_boolean_is_refused(tmp_path):
+    space = Torus(2)
+    x = space.random_uniform(64, torch.Generator().manual_seed(0))
+    m = heatwalk.fit(space, x, steps=2, batch_size=16, progress=False,
+                     network={"hidden": 8, "depth": 1, "residual": True, "time_skip": True})
+    folder = m.save(tmp_path / "r")
+    assert heatwalk.load(folder).network.config()["time_skip"] is True
+    _edit(folder, lambda c: c["network"]["config"].update(time_skip="yes"))
+    with pytest.raises(InputError, match="key 'network.config.time_skip' must be true or false") as e:
+        heatwalk.load(folder)
+    _one_line(e)
+
+
 def test_model_json_top_level_list_and_deep_nesting(folder):
     (folder / "model.json").write_text("[1, 2]")
     with pytest.raises(InputError, match="top level must be a JSON object"):

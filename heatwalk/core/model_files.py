@@ -48,7 +48,7 @@ NETWORK_LIMITS = {
     "mlp": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
             "fourier_features": _WIDTH, "fourier_scale": None},
     "residual": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
-                 "fourier_features": _WIDTH, "fourier_scale": None},
+                 "fourier_features": _WIDTH, "fourier_scale": None, "time_skip": bool},
     "transformer": {"length": _WIDTH, "n_inputs": _WIDTH, "n_outputs": _WIDTH, "time_dim": _WIDTH,
                     "d_model": _WIDTH, "n_layers": 1000, "n_heads": 4096},
 }
@@ -125,6 +125,11 @@ def _check_network(network: dict, where: Path) -> None:
             raise InputError(f"{where}: unknown key {field!r} for a {name} network (known: {', '.join(limits)})",
                              field=field)
         top = limits.get(key, _WIDTH)
+        if top is bool:
+            if not isinstance(value, bool):
+                raise InputError(f"{where}: key {field!r} must be true or false, got {json.dumps(value)[:60]}",
+                                 field=field)
+            continue
         if top is None:  # a positive finite real number
             if not isinstance(value, (int, float)) or isinstance(value, bool) or not 0 < value < float("inf"):
                 raise InputError(f"{where}: key {field!r} must be a positive finite number, got "

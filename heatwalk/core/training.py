@@ -116,7 +116,7 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
     data : points in memory (tensor, array, list; a tuple per factor for a product), a numpy memory-mapped
         array or a map-style torch Dataset (rows read batch by batch), or an iterable of batches such as a
         DataLoader (each item one global batch); see :mod:`heatwalk.core.data_source`.
-    steps, batch_size, lr : Adam steps (default: the size rule's, 3000 up to 4,000 points; 3000 when the rule is
+    steps, batch_size, lr : Adam steps (default: the size rule's, 3000 up to 1,000 points; 3000 when the rule is
         off or the data size is unknown), batch size, learning rate. In a
         data-parallel run ``batch_size`` is the global batch, split between the processes.
     lr_warmup, lr_floor : the learning rate rises linearly over the first ``lr_warmup`` steps (default 0: none;
@@ -140,10 +140,10 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
     inpainting : also train the network to condition on known coordinates (torus, R^d), so that
         ``Model.sample(given=...)`` is exact (see :mod:`heatwalk.core.conditioning`).
     device : "cpu" (default), "cuda", "cuda:N" or "auto" (:func:`heatwalk.core.devices.resolve_device`).
-    size_rule : choose ``steps`` and the network's width and depth from the number of data points (default on;
-        :func:`heatwalk.core.sizing.size_rule`: below 4,000 points the fixed 3000 steps and width 256, so small
-        fits are as before; the width and depth for score-matching networks only); an explicit ``steps`` or
-        ``network`` entry wins over the rule. With an iterable of batches (size unknown) the rule cannot apply
+    size_rule : choose ``steps`` and the network from the number of data points (default on;
+        :func:`heatwalk.core.sizing.size_rule`: 3000 steps up to 1,000 points, more above; for score matching
+        the residual network of width 128, 256 from 8,000 points, with its time skip where the space's features
+        are unbounded); an explicit ``steps`` or ``network`` entry wins over the rule. With an iterable of batches (size unknown) the rule cannot apply
         and the fixed defaults are used; the record's "size_rule" entry says which happened.
     time_tilt : tilt a ∈ (-1, 1) of the training-time density with importance weights that keep the objective
         unchanged (:mod:`heatwalk.core.schedule`; a > 0 draws more small times). Score-matching objectives only.
@@ -306,7 +306,8 @@ def _spread(space, source, n_data):
 
 def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Settings:
     """Settings with ``steps`` (3000 unless the size rule gives it) and the network options resolved. The rule's
-    width and depth apply to objectives whose default network is the MLP (``objective.sized_by_data``)."""
+    network options apply to objectives that size their network by the data (``objective.sized_by_data``);
+    an explicit entry wins over the rule's."""
     dim = getattr(space, "dim", 0) or space.embed_dim
     network = dict(o.network) if o.network else None
     steps = o.steps
@@ -314,7 +315,10 @@ def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Setting
         rule = sizing.size_rule(n_data, dim, getattr(space, "bounded_embedding", False))
         steps = rule["steps"] if steps is None else steps
         if objective.sized_by_data:
-            network = {**rule["network"], **(network or {})}
+            chosen = {**rule["network"], **(network or {})}
+            if not chosen.get("residual") and "time_skip" not in (network or {}):
+                chosen.pop("time_skip", None)  # the rule's skip belongs to its residual network, not to an MLP
+            network = chosen
     network = sizing.resolve_network(network, n_data, dim, lambda: _spread(space, source, n_data))
     steps = sizing.BASE_STEPS if steps is None else steps
     warmup = int(math.ceil(o.lr_warmup * steps)) if isinstance(o.lr_warmup, float) else o.lr_warmup

@@ -100,8 +100,7 @@ def fit_flags() -> list[Flag]:
              minimum=1, maximum=MAX_BATCH),
         Flag("learning_rate", float, "Adam learning rate, cosine-decayed to a tenth", default=2e-3, metavar="LR",
              minimum=0, open_minimum=True),
-        Flag("hidden", int, "network width (default: torus, sphere, SO(3) 128, 256 from 8,000 points (residual "
-             "network); simplex, R^d 256, 512 from 8,000 (MLP); sequences 64)",
+        Flag("hidden", int, "network width (default: 128, 256 from 8,000 points (residual network); sequences 64)",
              metavar="N", minimum=1, maximum=MAX_WIDTH),
         Flag("depth", int, "network depth (residual blocks, or hidden layers of the MLP; transformer layers for "
              "sequences)", metavar="N", minimum=1, maximum=MAX_DEPTH),

@@ -10,6 +10,7 @@ import torch
 from torch import nn
 
 from heatwalk.checks import check_number, check_positive_int
+from heatwalk.errors import InputError
 
 
 class ResidualBlock(nn.Module):
@@ -42,10 +43,17 @@ class ResidualDenoiser(nn.Module):
     change with the noise level at every layer. Same constructor arguments as the MLP (``depth``: the number of
     blocks, two hidden layers each; ``fourier_features`` / ``fourier_scale``: random Fourier features of the
     point features, as there).
+
+    ``time_skip``: also add M(t) · features to the output, a linear map of the point features whose
+    out_dim x in_dim matrix M(t) is a linear function of the embedded time (zero at the start). The blocks'
+    LayerNorms keep the direction of their input and drop its length, and the last one bounds the output; on
+    unbounded features (R^d, the simplex's clr coordinates) the score grows linearly in the point far from the
+    data, with a slope that changes with the noise level (−x / σ²(t) for a Gaussian marginal), and M(t) is
+    that slope.
     """
 
     def __init__(self, in_dim: int, time_dim: int, out_dim: int, hidden: int = 256, depth: int = 3,
-                 fourier_features: int = 0, fourier_scale: float = 1.0):
+                 fourier_features: int = 0, fourier_scale: float = 1.0, time_skip: bool = False):
         super().__init__()
         for name, value in (("in_dim", in_dim), ("time_dim", time_dim), ("out_dim", out_dim), ("hidden", hidden),
                             ("depth", depth)):
@@ -53,7 +61,12 @@ class ResidualDenoiser(nn.Module):
         if fourier_features != 0:
             check_positive_int("residual network: fourier_features", fourier_features)
         check_number("residual network: fourier_scale", fourier_scale, minimum=0, open_minimum=True)
+        if not isinstance(time_skip, bool):
+            raise InputError(f"residual network: time_skip must be true or false, got {time_skip!r}",
+                             field="network")
         self._config = dict(in_dim=in_dim, time_dim=time_dim, out_dim=out_dim, hidden=hidden, depth=depth)
+        if time_skip:  # stored only when on, so configs written before the option read as before
+            self._config["time_skip"] = True
         if fourier_features:
             self._config.update(fourier_features=int(fourier_features), fourier_scale=float(fourier_scale))
             # cpu: networks are initialised on the CPU from the seed, then moved
@@ -66,6 +79,11 @@ class ResidualDenoiser(nn.Module):
         self.blocks = nn.ModuleList(ResidualBlock(hidden) for _ in range(depth))
         self.norm = nn.LayerNorm(hidden)
         self.outlet = nn.Linear(hidden, out_dim)
+        self.skip_matrix = None
+        if time_skip:
+            self.skip_matrix = nn.Linear(hidden, out_dim * in_dim)
+            nn.init.zeros_(self.skip_matrix.weight)
+            nn.init.zeros_(self.skip_matrix.bias)
 
     def config(self) -> dict:
         return dict(self._config)
@@ -79,4 +97,8 @@ class ResidualDenoiser(nn.Module):
         c = self.time_embedding(time_features)
         for block in self.blocks:
             h = block(h, c)
-        return self.outlet(nn.functional.silu(self.norm(h)))
+        out = self.outlet(nn.functional.silu(self.norm(h)))
+        if self.skip_matrix is not None:
+            m = self.skip_matrix(c).reshape(*c.shape[:-1], out.shape[-1], features.shape[-1])
+            out = out + (m @ features.unsqueeze(-1)).squeeze(-1)
+        return out

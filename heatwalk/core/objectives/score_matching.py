@@ -44,17 +44,25 @@ class ScoreMatching(Objective):
         self._out_dim = math.prod(space.ambient_shape)
 
     def default_network(self, hidden: int = 256, depth: int = 3, fourier_features: int = 0,
-                        fourier_scale: float = 1.0, residual: bool = False, **extra) -> nn.Module:
+                        fourier_scale: float = 1.0, residual: bool = False, time_skip: bool = False,
+                        **extra) -> nn.Module:
         """The MLP (``residual=False``) or the residual network with time in every block
-        (:class:`heatwalk.core.networks.residual.ResidualDenoiser`), same size options."""
+        (:class:`heatwalk.core.networks.residual.ResidualDenoiser`), same size options; ``time_skip`` (residual
+        network only): its time-dependent linear map of the features added to the output."""
         if extra:
             raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, "
-                             f"fourier_features, fourier_scale, hidden, residual", field="network")
-        if not isinstance(residual, bool):
-            raise InputError(f"network option 'residual' must be true or false, got {residual!r}", field="network")
-        cls = ResidualDenoiser if residual else MLPDenoiser
-        return cls(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth, fourier_features,
-                   fourier_scale)
+                             f"fourier_features, fourier_scale, hidden, residual, time_skip", field="network")
+        for key, value in (("residual", residual), ("time_skip", time_skip)):
+            if not isinstance(value, bool):
+                raise InputError(f"network option {key!r} must be true or false, got {value!r}", field="network")
+        if not residual:
+            if time_skip:
+                raise InputError("network option 'time_skip' belongs to the residual network; add "
+                                 "'residual': true", field="network")
+            return MLPDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth,
+                               fourier_features, fourier_scale)
+        return ResidualDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth,
+                                fourier_features, fourier_scale, time_skip)
 
     def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor, labels=None, known=None) -> torch.Tensor:
         """sqrt(t) s_θ(x, t) as a float64 tangent vector at x (``known``: coordinate flags of inpainting models)."""
