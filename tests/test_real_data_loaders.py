@@ -126,6 +126,7 @@ def test_budget_shares_zero_replacement():
     zero = raw == 0
     assert x.shape == raw.shape == (1519, 6)
     assert info["rows_with_zeros"] == int(zero.any(1).sum()) == 343
+    assert np.array_equal(info["zero_rows"], zero.any(1))  # the rows the benchmark reports apart
     assert np.abs(x.sum(1) - 1).max() < 1e-12 and x.min() > 0
     delta = real_datasets.BUDGET_ZERO_DELTA
     # validate() closes each row once more, so equality holds up to float64 rounding (relative 1e-12)
