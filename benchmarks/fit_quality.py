@@ -203,7 +203,8 @@ def run_target(target, cfg, sz, progress):
     mean, std = e_train.mean(0), e_train.std(0).clamp_min(1e-12)
     espace = Euclidean(e_train.shape[1])
     emodel = heatwalk.fit(espace, (e_train - mean) / std, steps=euclid_steps, batch_size=kw["batch_size"],
-                          seed=SEED, network={"hidden": cfg["hidden"], "depth": cfg["depth"]}, progress=progress)
+                          seed=SEED, network={"hidden": cfg["hidden"], "depth": cfg["depth"], "residual": False},
+                          progress=progress)
     ey = emodel.sample(sz["n_mmd"], steps=sz["sample_steps"], sampler="probability_flow", seed=SEED + 6,
                        progress=False)
     e_samples = back_to_space(target, ey * std + mean)
