@@ -17,11 +17,13 @@ from heatwalk.spaces.so3 import SO3
 from heatwalk.spaces.simplex import Simplex
 from heatwalk.spaces.categories import Categories
 from heatwalk.spaces.euclidean import Euclidean
-from heatwalk.spaces.product import Product
+from heatwalk.spaces.product import Product, table_factor_options
 
 SPACE_KINDS: dict[str, type[Space]] = {
     cls.kind: cls for cls in (Torus, Sphere, SO3, Simplex, Categories, Euclidean, Product)
 }
+# a product read from a table takes every table space's reading options (each goes to the factors declaring it)
+Product.file_options = table_factor_options(SPACE_KINDS.values())
 
 __all__ = ["Space", "Manifold", "FiniteStateSpace", "IsotropicKernel", "Option", "Torus", "Sphere", "SO3",
            "Simplex", "Categories", "Euclidean", "Product", "SPACE_KINDS", "from_config", "register"]
@@ -32,6 +34,7 @@ def register(cls: type[Space]) -> type[Space]:
     if not (isinstance(cls, type) and issubclass(cls, Space)):
         raise InputError(f"register: expected a Space subclass, got {cls!r}", field="cls")
     SPACE_KINDS[cls.kind] = cls
+    Product.file_options = table_factor_options(SPACE_KINDS.values())
     return cls
 
 

@@ -41,8 +41,8 @@ which never test which space they hold):
   one, with reconstruction guidance (torus, R^d).
 
 - ``plot_kind``: which picture :mod:`heatwalk.frontend.plots` draws for it
-  (``"angles"``, ``"directions"``, ``"rotations"``, ``"compositions"``,
-  ``"sequences"``, ``"factors"``), or None when it has no picture.
+  (``"angles"``, ``"coordinates"``, ``"directions"``, ``"rotations"``,
+  ``"compositions"``, ``"sequences"``, ``"factors"``), or None when it has no picture.
 
 Conventions
 -----------
@@ -305,6 +305,17 @@ class Space(ABC):
         self.check_file_options(options)
         return [f"x{i}" for i in range(self.n_columns)]
 
+    def given_from_columns(self, index: list[int], values: torch.Tensor, **options) -> dict:
+        """``given`` for ``Model.sample`` from the values (n, len(index)) of table columns ``index`` (0-based),
+        in the file's units (read with ``options``): on a space of flat coordinates ("coordinates") column j
+        is coordinate j. A space without fixable columns refuses; products override (by factor)."""
+        if "coordinates" not in self.capabilities:
+            raise InputError(f"{self!r} has no coordinates that can be fixed", field="fix")
+        full = torch.zeros(values.shape[0], self.n_columns_for(**options), dtype=DTYPE)  # cpu: parsed values
+        full[:, index] = values.to(DTYPE)
+        converted = self.from_rows(full, **options)
+        return {i: converted[:, i] for i in index}
+
     def plot_coordinates(self, x: torch.Tensor):
         """2-D picture coordinates ``(coords (n, 2) numpy, (xlabel, ylabel), (xlim, ylim))``, or None."""
         return None
@@ -317,6 +328,10 @@ class Space(ABC):
     def take(self, x, index):
         """The points ``x[index]`` of a batch (index: a slice or an index tensor)."""
         return x[index]
+
+    def concat(self, batches):
+        """One batch of the points of ``batches`` (a sequence of batches), in order."""
+        return torch.cat([torch.as_tensor(b) for b in batches], 0)
 
     @abstractmethod
     def validate(self, x) -> torch.Tensor:

@@ -46,6 +46,7 @@ class Euclidean(Manifold):
     """
 
     kind = "euclidean"
+    plot_kind = "coordinates"
     reference_measure = "Lebesgue measure"
     capabilities = frozenset({"coordinates"})
 

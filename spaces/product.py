@@ -21,6 +21,26 @@ own sampling grid (geometric, resp. linear). τ = 1 is every factor's prior.
 
 The measure of a product is the product of the factors' base measures;
 ``log_kernel`` is the sum of the factors' log-kernels, in nats.
+
+Tables
+------
+A table row holds the factors' columns side by side, in factor order. Read
+from a table (``from_table``, what ``heatwalk fit --space product`` does), the
+factors are named by the reading option ``factors``, a text
+``KIND:N[:SETTING…],KIND:N[:SETTING…],…`` that gives each factor's space kind,
+its number of columns in column order and, optionally, reading options for that
+factor alone (``NAME=VALUE``, or ``NAME`` for a switch): ``torus:2,euclidean:3``
+is two angles then three coordinates; ``torus:2:degrees,so3:4:rotation_format=
+quaternion:quaternion_order=wxyz`` is two angles in degrees then quaternions.
+Each factor is built from its columns as that space builds itself from a table
+of its own. A reading option given beside ``factors`` (the union of the table
+spaces' ``file_options``) goes to every factor that declares it — ``degrees=True``
+reads the torus's angles and SO(3) rotation vectors in degrees — unless the
+factor's own setting in ``factors`` says otherwise; one that no factor takes is
+refused. ``factors`` is kept with the model's reading options, so samples are
+written in the units they were read in. Finite factors have no table form (their
+states are not numbers); a product read from a table has manifold and R^d
+factors only.
 """
 
 from __future__ import annotations
@@ -31,7 +51,7 @@ from typing import ClassVar
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.spaces.base import DTYPE, Space
+from heatwalk.spaces.base import DTYPE, Option, Space
 from heatwalk.spaces.finite import FiniteStateSpace
 from heatwalk.spaces.manifold import Manifold
 
@@ -44,6 +64,9 @@ class Product(Space):
     reference_measure = "the product of the factors' measures"
     objective_name: ClassVar[str] = "product"
     max_time: ClassVar[float] = 1.0
+    #: ``factors`` (:data:`FACTORS_OPTION`) and the union of the table spaces' reading options, each passed to
+    #: the factors that declare it (set by heatwalk.spaces from its registry: :func:`table_factor_options`)
+    file_options: ClassVar[tuple[Option, ...]] = ()
 
     def __init__(self, *factors: Space):
         if len(factors) < 2:
@@ -81,6 +104,9 @@ class Product(Space):
 
     def take(self, x, index):
         return tuple(xi[index] for xi in x)
+
+    def concat(self, batches):
+        return tuple(torch.cat([torch.as_tensor(b[i]) for b in batches], 0) for i in range(len(self.factors)))
 
     def validate(self, x) -> tuple:
         """A tuple of validated factor batches of one common length; errors name the factor."""
@@ -121,32 +147,123 @@ class Product(Space):
         return torch.cat([f.embed(xi) for f, xi in zip(self.factors, x)], dim=-1)
 
     # ----- tables ---------------------------------------------------------------------------------
+    @classmethod
+    def from_table(cls, n_columns: int, *, factors: str | None = None, **options) -> "Product":
+        """The product named by ``factors`` (``KIND:N[:SETTING…],…``, module docstring) whose columns fill
+        ``n_columns``; each factor is built by its class's ``from_table`` from its N columns and its reading
+        options."""
+        from heatwalk.spaces import SPACE_KINDS
+
+        cls.check_file_options(options)
+        spec = parse_factor_spec(factors)
+        total = sum(n for _, n, _ in spec)
+        if total != n_columns:
+            raise InputError(f"factors {factors!r} take {total} columns, but the table has {n_columns} data "
+                             f"columns (choose them, in factor order, with --columns)", field="factors")
+        built, j = [], 0
+        for i, (kind, n, own) in enumerate(spec):
+            factor_cls = SPACE_KINDS[kind]
+            opts = _options_for(factor_cls, options) | own
+            where = f"factors: factor {i} ({kind}:{n}, table columns {j + 1}–{j + n})"
+            try:
+                f = factor_cls.from_table(n, **opts)
+                reads = f.n_columns_for(**opts)
+            except InputError as e:
+                raise InputError(f"{where}: {e.message}{_shared_hint(options, own, e)}", field="factors") from None
+            if reads != n:
+                read_with = ", ".join(f"{k}={v!r}" for k, v in opts.items()) or "its default reading options"
+                raise InputError(f"{where}: {f!r} read with {read_with} takes {reads} columns, not {n}",
+                                 field="factors")
+            built.append(f)
+            j += n
+        unused = sorted(set(options) - {o.name for f in built for o in type(f).file_options})
+        if unused:
+            raise InputError(f"factors {factors!r}: no factor takes the reading option {unused[0]!r}",
+                             field=unused[0])
+        return cls(*built)
+
+    def factor_options(self, options: dict) -> list[dict]:
+        """The reading options of each factor: those of ``options`` its class declares, updated by its own
+        settings in ``options["factors"]`` when given (which must name this product's factors). An option that
+        no factor of this product takes is refused."""
+        type(self).check_file_options(options)
+        options = dict(options)
+        spec = options.pop("factors", None)
+        out = [_options_for(type(f), options) for f in self.factors]
+        unused = sorted(set(options) - {k for o in out for k in o})
+        if unused:
+            raise InputError(f"{self!r}: no factor takes the reading option {unused[0]!r}", field=unused[0])
+        if spec is not None:
+            items = parse_factor_spec(spec)
+            kinds = [k for k, _, _ in items]
+            if kinds != [f.kind for f in self.factors]:
+                raise InputError(f"factors {spec!r} name the factors {', '.join(kinds)}, but the space is {self!r}",
+                                 field="factors")
+            out = [o | own for o, (_, _, own) in zip(out, items)]
+        return out
+
     @property
     def n_columns(self) -> int:
         return sum(f.n_columns for f in self.factors)
 
     def column_names(self, **options) -> list[str]:
-        self.check_file_options(options)
-        return [f"f{i}_{name}" for i, f in enumerate(self.factors) for name in f.column_names()]
+        """``f{i}_{name}`` for each factor i's column names (read with the options it takes)."""
+        return [f"f{i}_{name}" for i, (f, o) in enumerate(zip(self.factors, self.factor_options(options)))
+                for name in f.column_names(**o)]
+
+    def factor_columns(self, **options) -> list[range]:
+        """The table columns of each factor (0-based, in row order) when read with ``options``."""
+        out, j = [], 0
+        for f, o in zip(self.factors, self.factor_options(options)):
+            n = f.n_columns_for(**o)
+            out.append(range(j, j + n))
+            j += n
+        return out
 
     def from_rows(self, rows, **options):
-        """Split an (n, Σ columns) table into the factors' columns (each in its default format)."""
-        self.check_file_options(options)
+        """Split an (n, Σ columns) table into the factors' columns, each read by its factor with the options it
+        takes (finite factors: integer state codes)."""
+        per_factor = self.factor_options(options)
+        spans = self.factor_columns(**options)
         # cpu: rows read from a file are on the CPU
         rows = torch.as_tensor(rows, dtype=DTYPE)
-        if rows.dim() != 2 or rows.shape[1] != self.n_columns:
-            raise InputError(f"{self!r}: expected rows of {self.n_columns} columns, got shape {tuple(rows.shape)}",
+        if rows.dim() != 2 or rows.shape[1] != spans[-1].stop:
+            raise InputError(f"{self!r}: expected rows of {spans[-1].stop} columns, got shape {tuple(rows.shape)}",
                              field="data")
-        out, j = [], 0
-        for f in self.factors:
-            out.append(rows[:, j:j + f.n_columns])
-            j += f.n_columns
-        return self.validate(tuple(o if isinstance(f, Manifold) else o.round().to(torch.int64)
-                                   for f, o in zip(self.factors, out)))
+        out = []
+        for i, (f, o, span) in enumerate(zip(self.factors, per_factor, spans)):
+            part = rows[:, span.start:span.stop]
+            try:
+                out.append(f.from_rows(part if isinstance(f, Manifold) else part.round().to(torch.int64), **o))
+            except InputError as e:
+                raise InputError(f"factor {i} ({f!r}): {e.message}", row=e.row, field=e.field) from None
+        return self.validate(tuple(out))
 
     def to_rows(self, x, **options):
-        self.check_file_options(options)
-        return torch.cat([f.to_rows(xi).to(DTYPE) for f, xi in zip(self.factors, x)], dim=1)
+        return torch.cat([f.to_rows(xi, **o).to(DTYPE)
+                          for f, xi, o in zip(self.factors, x, self.factor_options(options))], dim=1)
+
+    def given_from_columns(self, index: list[int], values: torch.Tensor, **options) -> dict:
+        """``given`` by factor from values of table columns ``index`` (n, len(index)), in the file's units: a
+        factor is fixed when all its columns are given; some but not all of a factor's columns is an error
+        (a factor of a product is fixed whole)."""
+        where = dict(zip(index, range(len(index))))
+        given = {}
+        for i, (f, o, span) in enumerate(zip(self.factors, self.factor_options(options),
+                                             self.factor_columns(**options))):
+            have = [c for c in span if c in where]
+            if not have:
+                continue
+            if len(have) != len(span):
+                missing = [c for c in span if c not in where]
+                raise InputError(f"factor {i} ({f!r}) is fixed whole: give all of its columns "
+                                 f"{[c + 1 for c in span]} (missing {[c + 1 for c in missing]})", field="fix")
+            part = values[:, [where[c] for c in span]]
+            try:
+                given[i] = f.from_rows(part if isinstance(f, Manifold) else part.round().to(torch.int64), **o)
+            except InputError as e:
+                raise InputError(f"factor {i} ({f!r}): {e.message}", row=e.row, field="fix") from None
+        return given
 
     # ----- the clock and the forward process ----------------------------------------------------
     @property
@@ -220,3 +337,102 @@ class Product(Space):
         if len(out) == len(self.factors):
             raise InputError("given: every factor is fixed; nothing is left to sample", field="given")
         return out
+
+
+def parse_factor_spec(text) -> list[tuple[str, int, dict]]:
+    """``"KIND:N[:SETTING…],…"`` -> [(kind, N, {option: value}), …] (module docstring): at least two factors, each
+    a space read from tables of numbers (not a finite space, not a product), N ≥ 1 columns, and settings among
+    the reading options its space declares (``NAME=VALUE``, or ``NAME`` for a switch)."""
+    from heatwalk.spaces import SPACE_KINDS
+
+    table_kinds = sorted(k for k, c in SPACE_KINDS.items() if c.file_kind == "table" and not issubclass(c, Product))
+    example = "e.g. torus:2,euclidean:3 or torus:2:degrees,so3:4:rotation_format=quaternion:quaternion_order=wxyz"
+    if not isinstance(text, str) or not text.strip():
+        raise InputError(f"a product read from a table needs factors=KIND:N,KIND:N,… (its factors in column order, "
+                         f"{example}; kinds: {', '.join(table_kinds)})", field="factors")
+    out = []
+    for k, item in enumerate(text.split(",")):
+        kind, count, *settings = [p.strip() for p in item.split(":")] + ([""] if ":" not in item else [])
+        if not kind or not count:
+            raise InputError(f"factors {text!r}: item {k + 1} {item.strip()!r} is not KIND:N ({example})",
+                             field="factors")
+        if kind not in SPACE_KINDS:
+            raise InputError(f"factors {text!r}: unknown space {kind!r} (kinds: {', '.join(table_kinds)})",
+                             field="factors")
+        if kind not in table_kinds:
+            raise InputError(f"factors {text!r}: a {kind} factor is not read from a table of numbers (kinds: "
+                             f"{', '.join(table_kinds)}); for a class per row, fit a conditional model with "
+                             f"--labels COLUMN", field="factors")
+        if not count.isdigit() or int(count) < 1:
+            raise InputError(f"factors {text!r}: item {k + 1} needs a column count N ≥ 1, got {count!r}",
+                             field="factors")
+        out.append((kind, int(count), _settings(SPACE_KINDS[kind], settings, f"factors {text!r}: item {k + 1}")))
+    if len(out) < 2:
+        raise InputError(f"factors {text!r}: a product needs at least two factors ({example}); for one space "
+                         f"use --space {out[0][0]}", field="factors")
+    return out
+
+
+def _settings(space_cls, settings: list[str], where: str) -> dict:
+    """{option: value} of ``NAME=VALUE`` / ``NAME`` settings, typed by the options ``space_cls`` declares."""
+    declared = {o.name: o for o in space_cls.file_options}
+    out = {}
+    for text in settings:
+        name, eq, value = (p.strip() for p in text.partition("="))
+        if name not in declared:
+            takes = ", ".join(declared) or "none"
+            raise InputError(f"{where}: {space_cls.kind} takes no reading option {name!r} (its options: {takes})",
+                             field="factors")
+        opt = declared[name]
+        if opt.kind is bool:
+            if eq and value.lower() not in ("true", "false"):
+                raise InputError(f"{where}: {name} is a switch: write {name} or {name}=true/false, got {text!r}",
+                                 field="factors")
+            out[name] = (not eq) or value.lower() == "true"
+            continue
+        if not eq or not value:
+            raise InputError(f"{where}: {name} needs a value: {name}=VALUE", field="factors")
+        try:
+            typed = opt.kind(value)
+        except ValueError:
+            raise InputError(f"{where}: {name}={value!r} is not a {opt.kind.__name__}", field="factors") from None
+        if opt.choices is not None and typed not in opt.choices:
+            raise InputError(f"{where}: {name}={value!r}: expected one of {', '.join(map(str, opt.choices))}",
+                             field="factors")
+        out[name] = typed
+    return out
+
+
+def _shared_hint(options: dict, own: dict, error: InputError) -> str:
+    """Advice when a factor refused a reading option that was given for every factor."""
+    shared = sorted(k for k in options if k not in own and k in error.message)
+    if not shared:
+        return ""
+    return (f" ({shared[0]} was given for every factor that takes it; give it to one factor alone in factors, "
+            f"e.g. torus:2:{shared[0]})")
+
+
+def _options_for(space_cls, options: dict) -> dict:
+    declared = {o.name for o in space_cls.file_options}
+    return {k: v for k, v in options.items() if k in declared}
+
+
+def table_factor_options(space_classes) -> tuple[Option, ...]:
+    """The union of the reading options of ``space_classes`` (first declaration of each name), each with its
+    help saying that it goes to the factors that take it: the ``file_options`` of :class:`Product`."""
+    import dataclasses
+
+    seen: dict[str, list] = {}
+    for c in space_classes:
+        if c.file_kind != "table" or issubclass(c, Product):
+            continue
+        for o in c.file_options:
+            seen.setdefault(o.name, [o, []])[1].append(c.kind)
+    return (FACTORS_OPTION, *(dataclasses.replace(o, help=f"to the {'/'.join(kinds)} factors: {o.help}", default=None)
+                              for o, kinds in seen.values()))
+
+
+#: the reading option naming a product's factors (module docstring)
+FACTORS_OPTION = Option(
+    "factors", str, "the factors in column order, KIND:N with N the factor's columns, and optionally its own "
+    "reading options: KIND:N[:NAME=VALUE|:NAME],… (e.g. torus:2:degrees,euclidean:3)", metavar="KIND:N,...")

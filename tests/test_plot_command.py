@@ -3,8 +3,7 @@ not blank, its axes carry the labels of the data (read back from the Figure the 
 follows the extension, and bad requests are one line with exit status 2 and nothing written.
 
 The Figures are caught by wrapping ``heatwalk.frontend.plots.save_figure`` (the command saves through it).
-Product spaces have no data files, so their picture (``factors``) is only reachable from Python
-(tests/test_plots.py).
+The picture of a product (``factors``) read from a data file is checked in tests/test_cli_product.py.
 """
 
 from __future__ import annotations

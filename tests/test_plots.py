@@ -330,7 +330,13 @@ def test_product_one_picture_per_factor(tmp_path, torus):
     with pytest.raises(InputError, match="takes no option 'columns'"):
         plot(space, pts, factor_options=[{}, {"columns": ["a"] * 5}])
     with pytest.raises(InputError, match="no picture"):
-        plot(Product(Euclidean(2), Torus(1)), (torch.zeros(3, 2), torch.zeros(3, 1)))
+        plot(Product(_Unpictured(2), Torus(1)), (torch.zeros(3, 2), torch.zeros(3, 1)))
+
+
+class _Unpictured(Euclidean):
+    """A space of one's own that declares no picture."""
+
+    plot_kind = None
 
 
 # ----- the loss curve and log-likelihoods -----------------------------------------------------------------
@@ -400,9 +406,9 @@ def test_every_declared_kind_has_a_picture():
     for kind, cls in SPACE_KINDS.items():
         if cls.plot_kind is not None:
             assert cls.plot_kind in PLOT_KINDS, kind
-    assert Euclidean.plot_kind is None
+    assert Euclidean.plot_kind == "coordinates"
     with pytest.raises(InputError, match="has no picture"):
-        plot(Euclidean(2), torch.zeros(4, 2))
+        plot(_Unpictured(2), torch.zeros(4, 2))
     assert picture_options(Torus(2)) == ["density", "columns", "degrees", "grid", "bins", "smoothing", "color_scale",
                                          "max_points"]
 

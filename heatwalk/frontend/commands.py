@@ -178,15 +178,14 @@ def _given_from_rows(model, names, rows, options, where) -> dict:
         index.append(columns.index(name))
     if "sequences" in space.capabilities:
         return {i: [row[k] for row in rows] if len(rows) > 1 else rows[0][k] for k, i in enumerate(index)}
-    full = torch.zeros(len(rows), len(columns), dtype=torch.float64)
     try:
-        full[:, index] = torch.tensor([[float(v) for v in row] for row in rows], dtype=torch.float64)
+        values = torch.tensor([[float(v) for v in row] for row in rows], dtype=torch.float64)
     except ValueError as e:
         raise InputError(f"{where}: a fixed value is not a number ({e})", field="fix") from None
-    converted = space.from_rows(full, **options) if "coordinates" in space.capabilities else None
-    if converted is None:
-        raise InputError(f"{where}: {space!r} has no coordinates that can be fixed", field="fix")
-    return {i: converted[:, i] for i in index}
+    try:
+        return space.given_from_columns(index, values, **options)
+    except InputError as e:
+        raise InputError(f"{where}: {e.message}", row=e.row, field="fix") from None
 
 
 def _parse_fix(model, fixes, options) -> dict:

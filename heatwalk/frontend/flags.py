@@ -55,8 +55,7 @@ def _samplers() -> tuple:
 def _spaces() -> tuple:
     from heatwalk.spaces import SPACE_KINDS
 
-    return tuple(k for k, cls in SPACE_KINDS.items() if cls.file_kind in ("table", "sequences")
-                 and k not in ("product",))
+    return tuple(k for k, cls in SPACE_KINDS.items() if cls.file_kind in ("table", "sequences"))
 
 
 #: caps that keep a mistyped number from asking for unbounded memory or time (far above any real use)

@@ -18,8 +18,10 @@ keywords of ``fit`` whose flag has another name, such as ``lr`` for
 
 Plain words that are also option names (``degrees``, ``length``) are left alone
 elsewhere, so "angles given in degrees" keeps its meaning. File paths are not
-touched (a name followed by ``.``, ``/`` or ``-`` and a letter is not a word here), nor a quoted
-name (``'train_steps'``: a config-file key is named as it is written in the file).
+touched (a name followed by ``.``, ``/`` or ``-`` and a letter is not a word here, nor one right after
+``:``, as inside ``so3:4:rotation_format=quaternion``), nor a quoted
+name (``'train_steps'``: a config-file key is named as it is written in the file), nor the repr of an
+object (``Euclidean(d=2, process='brownian')``: its keywords are the object's arguments).
 """
 
 from __future__ import annotations
@@ -32,7 +34,7 @@ API_KEYWORDS = {"lr": "--learning-rate", "checkpoint_dir": "--checkpoints"}
 NOT_REWRITTEN = ("n",)
 
 _VALUE = r"('[^']*'|\"[^\"]*\"|[^\s,;)]+)"
-_NOT_BEFORE = r"(?<![\w./\-'\"])"
+_NOT_BEFORE = r"(?<![\w./\-'\":])"
 _NOT_AFTER = r"(?![\w/\-]|\.\w)"
 
 
@@ -56,8 +58,22 @@ def _as_flag(flag: str, value: str) -> str:
     return f"{flag} {value}"
 
 
+#: a repr of a library object such as ``Euclidean(d=2, process='brownian')`` or a product of them (two levels of
+#: parentheses): its keywords are the object's, not options, and are left as they are
+_REPR = re.compile(r"\b[A-Z]\w*\((?:[^()]|\((?:[^()]|\([^()]*\))*\))*\)")
+
+
 def for_command_line(message: str) -> str:
-    """``message`` with the library's option names replaced by command-line flags (module docstring)."""
+    """``message`` with the library's option names replaced by command-line flags (module docstring); reprs of
+    objects (``Name(...)``) are kept as written."""
+    out, last = [], 0
+    for m in _REPR.finditer(message):
+        out += [_rewrite(message[last:m.start()]), m.group(0)]
+        last = m.end()
+    return "".join(out + [_rewrite(message[last:])])
+
+
+def _rewrite(message: str) -> str:
     names = flag_names()
     alternatives = "|".join(sorted(map(re.escape, names), key=len, reverse=True))
     message = re.sub(rf"{_NOT_BEFORE}({alternatives}) ?= ?{_VALUE}",

@@ -145,7 +145,7 @@ def mmd_permutation_z(space: Space, x, y, bandwidth: float, *, n_permutations: i
     n, m = space.n_points(x), space.n_points(y)
     if n < 2 or m < 2:
         raise InputError("MMD² needs at least 2 points in each sample")
-    pooled = torch.cat([torch.as_tensor(x), torch.as_tensor(y)], 0)
+    pooled = space.concat([x, y])
     d = pairwise_dist(space, pooled, pooled).to(torch.float64).numpy()
     k = np.exp(-0.5 * d**2 / bandwidth**2)
     diag = np.diag(k).copy()

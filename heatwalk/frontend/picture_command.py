@@ -102,6 +102,12 @@ def picture_units_and_names(space, options: dict, columns) -> dict:
         return {}
     takes = option_names(PLOT_KINDS[space.plot_kind].draw)
     out = {}
+    if "factor_options" in takes:  # a picture per factor: each gets its factor's units and column names
+        spans = space.factor_columns(**options)
+        names = columns if columns and len(columns) == spans[-1].stop else None
+        out["factor_options"] = [
+            picture_units_and_names(f, o, None if names is None else [names[c] for c in span])
+            for f, o, span in zip(space.factors, space.factor_options(options), spans)]
     if "degrees" in takes and "degrees" in {o.name for o in type(space).file_options}:
         out["degrees"] = bool(options.get("degrees", False))
     if "columns" in takes and columns and len(columns) == len(space.column_names()):

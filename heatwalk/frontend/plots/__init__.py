@@ -8,6 +8,7 @@ pyplot); :func:`save_figure` writes it as PNG, SVG or PDF by the file's extensio
 plot_kind          picture (module)
 =================  ==========================================================================
 ``angles``         torus: density heat map with data over it, all pairs for n ≥ 3 (angles)
+``coordinates``    R^d: density heat map over the data's window, all pairs for d ≥ 3 (coordinates)
 ``directions``     S²: equal-area map of the density with data over it (directions)
 ``rotations``      SO(3): axes coloured by angle, angle histogram vs Haar (rotations)
 ``compositions``   simplex: ternary diagram (K = 3), log-ratio histograms (compositions)
@@ -26,9 +27,12 @@ A space of your own gets a picture by declaring ``plot_kind`` and, for a new kin
 from __future__ import annotations
 
 from heatwalk.errors import InputError
-from heatwalk.frontend.plots import angles, compositions, directions, factors, rotations, sequences
+from heatwalk.frontend.plots import (
+    angles, compositions, coordinates, directions, factors, rotations, sequences,
+)
 from heatwalk.frontend.plots.angles import plot_angles
 from heatwalk.frontend.plots.compositions import plot_compositions
+from heatwalk.frontend.plots.coordinates import plot_coordinates
 from heatwalk.frontend.plots.diagnostics import plot_log_likelihoods, plot_losses
 from heatwalk.frontend.plots.directions import plot_directions
 from heatwalk.frontend.plots.factors import plot_factors
@@ -40,6 +44,8 @@ from heatwalk.frontend.plots.sequences import plot_sequences
 #: plot_kind -> the picture drawn for spaces that declare it
 PLOT_KINDS: dict[str, Picture] = {
     "angles": Picture(angles.draw_angles, angles.default_size, angles.OPTIONS, angles.shows_model_density),
+    "coordinates": Picture(coordinates.draw_coordinates, coordinates.default_size, coordinates.OPTIONS,
+                           coordinates.shows_model_density),
     "directions": Picture(directions.draw_directions, directions.default_size, directions.OPTIONS,
                           directions.shows_model_density),
     "rotations": Picture(rotations.draw_rotations, rotations.default_size, rotations.OPTIONS),
@@ -50,9 +56,8 @@ PLOT_KINDS: dict[str, Picture] = {
 }
 
 __all__ = ["PLOT_KINDS", "plot", "picture_for", "picture_options", "save_figure", "new_figure", "plot_angles",
-           "plot_directions",
-           "plot_rotations", "plot_compositions", "plot_sequences", "plot_factors", "plot_losses",
-           "plot_log_likelihoods", "plot_data_and_samples"]
+           "plot_directions", "plot_rotations", "plot_compositions", "plot_coordinates", "plot_sequences",
+           "plot_factors", "plot_losses", "plot_log_likelihoods", "plot_data_and_samples"]
 
 
 def picture_for(space) -> Picture:
