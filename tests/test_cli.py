@@ -219,3 +219,21 @@ def test_bad_sequences_exit_2(tmp_path, capsys, content, flags, message):
     assert err.startswith("heatwalk: error: ") and err.count("\n") == 1
     assert re.search(message, err, flags=re.IGNORECASE), err
     assert sorted(x.name for x in tmp_path.iterdir()) == ["bad.fasta"]
+
+
+def test_a_closed_standard_output_stops_quietly_with_the_sigpipe_status(tmp_path, angles_csv, capsys, monkeypatch):
+    """``heatwalk fit … | head -1``: the model folder is written whole, nothing is reported as a bug, and the exit
+    status is 141 (128 + SIGPIPE, the shell's convention)."""
+    import io
+
+    class ClosedPipe(io.StringIO):
+        def write(self, text):
+            raise BrokenPipeError(32, "Broken pipe")
+
+    model = tmp_path / "model"
+    monkeypatch.setattr(sys, "stdout", ClosedPipe())
+    code = main(["fit", str(angles_csv), "--space", "torus", "--out", str(model), "--train-steps", "5", "--quiet"])
+    monkeypatch.undo()
+    assert code == 141
+    assert "bug" not in capsys.readouterr().err
+    assert (model / "model.json").is_file() and (model / "weights.safetensors").is_file()

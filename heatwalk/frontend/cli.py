@@ -20,7 +20,9 @@ handler):
 - 130 / 143: stopped by SIGINT (Ctrl-C) / SIGTERM: one line (with the checkpoint
   written, when a fit has checkpoints); unfinished outputs are not written;
 - 1: an unexpected exception, a bug: one line naming it and asking to report
-  it; the traceback too with ``--debug`` (accepted by every command).
+  it; the traceback too with ``--debug`` (accepted by every command);
+- 141: the reader of standard output closed it (``| head``): nothing more is
+  printed; files the command wrote are whole.
 """
 
 from __future__ import annotations
@@ -31,9 +33,11 @@ import traceback
 
 from heatwalk.errors import InputError
 
-#: exit statuses: 0 success, 1 a bug (an unexpected exception), 2 bad input; 130 SIGINT, 143 SIGTERM
+#: exit statuses: 0 success, 1 a bug (an unexpected exception), 2 bad input; 130 SIGINT, 143 SIGTERM;
+#: 141 (128 + SIGPIPE, the shell's convention) when the reader of standard output closed it
 EXIT_BUG = 1
 EXIT_BAD_INPUT = 2
+EXIT_BROKEN_PIPE = 141
 
 
 class _Parser(argparse.ArgumentParser):
@@ -201,6 +205,18 @@ def main(argv=None) -> int:
             said = _one_line(str(e)) or "interrupted (SIGINT)"
             print(f"heatwalk: {said}; unfinished outputs were not written", file=sys.stderr)
             return exit_status(e)
+        except BrokenPipeError:
+            # the reader of standard output closed it (``heatwalk info MODEL | head -1``): what the command
+            # writes to files is already whole (atomic writes); stop quietly, as a pipeline expects, with the
+            # shell's status for SIGPIPE, and point stdout at /dev/null so that the interpreter's own flush
+            # at exit does not fail again (the practice the Python documentation gives for SIGPIPE)
+            import os
+
+            try:
+                os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            except (OSError, ValueError, AttributeError):  # stdout without a file descriptor (e.g. captured)
+                pass
+            return EXIT_BROKEN_PIPE
         except Exception as e:  # a bug: every expected failure is an InputError
             if debug:
                 traceback.print_exc(file=sys.stderr)
