@@ -330,8 +330,8 @@ class Space(ABC):
         return x[index]
 
     def concat(self, batches):
-        """One batch of the points of ``batches`` (a sequence of batches), in order."""
-        return torch.cat([torch.as_tensor(b) for b in batches], 0)
+        """One batch of the points of ``batches`` (a sequence of batches of points, on one device), in order."""
+        return torch.cat(list(batches), 0)
 
     @abstractmethod
     def validate(self, x) -> torch.Tensor:

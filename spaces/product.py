@@ -106,7 +106,7 @@ class Product(Space):
         return tuple(xi[index] for xi in x)
 
     def concat(self, batches):
-        return tuple(torch.cat([torch.as_tensor(b[i]) for b in batches], 0) for i in range(len(self.factors)))
+        return tuple(torch.cat([b[i] for b in batches], 0) for i in range(len(self.factors)))
 
     def validate(self, x) -> tuple:
         """A tuple of validated factor batches of one common length; errors name the factor."""
