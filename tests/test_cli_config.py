@@ -149,7 +149,7 @@ def test_wide_table_with_named_columns_labels_and_ignored_columns(tmp_path, caps
                           "residue", "--out", str(tmp_path / "m"), "--train-steps", "10", "--hidden", "16",
                           "--quiet"], capsys)
     assert code == 0, err
-    assert "Torus(n=2)" in out and "phi, psi -> the 2 coordinates" in out and "ignored      omega" in out
+    assert "Torus(n=2)" in out and "phi, psi (2 per point)" in out and "ignored      omega" in out
     assert "2 classes: ALA, GLY" in out
     code, _, err = run(["sample", str(tmp_path / "m"), "--n", "8", "--out", str(tmp_path / "s.npz"),
                         "--reverse-steps", "5", "--label", "GLY", "--quiet"], capsys)

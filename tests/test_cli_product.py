@@ -169,6 +169,24 @@ def test_fixing_a_whole_factor_conditions_the_others(fitted, tmp_path, capsys):
     assert abs(mean_angle - 90) < 30
 
 
+def test_fixed_degrees_are_written_exactly_as_given(fitted, tmp_path, capsys):
+    """-60° goes to radians and back as -59.999999999999986 in float64 (numpy: np.rad2deg(np.deg2rad(-60.0)));
+    the written file holds the value as given, for one fixed value and for one value per sample."""
+    assert np.rad2deg(np.deg2rad(-60.0)) != -60.0            # the round trip this test is about
+    folder, data, model = fitted
+    out = tmp_path / "fixed.csv"
+    code, _, err = run(["sample", str(model), "--n", "20", "--out", str(out), "--fix", "phi=-60", "--quiet"], capsys)
+    assert code == 0, err
+    assert np.all(_read(out)[1][:, 0] == -60.0)
+    wanted = [-60.0, 33.3, 170.1, -0.7, 12.345678]
+    given = tmp_path / "given.csv"
+    _write(given, {"phi": wanted})
+    code, _, err = run(["sample", str(model), "--n", str(len(wanted)), "--out", str(out), "--given", str(given),
+                        "--overwrite", "--quiet"], capsys)
+    assert code == 0, err
+    assert _read(out)[1][:, 0].tolist() == wanted
+
+
 def test_fixing_part_of_a_factor_is_refused(fitted, tmp_path, capsys):
     folder, data, model = fitted
     out = tmp_path / "part.csv"

@@ -303,6 +303,22 @@ def test_writers_refuse_unknown_extensions_before_any_work(tmp_path):
         torch.testing.assert_close(read_points(p, Torus(2)), x, rtol=0, atol=0)
 
 
+def test_fixed_values_are_written_as_given_only_where_they_survived_the_round_trip(tmp_path):
+    """Degrees through radians and back move -60 by a few units in the last place (numpy's deg2rad/rad2deg);
+    ``as_given`` writes it as given. An angle given as 270° is kept by the torus as -90°, a different number:
+    it is written as the space writes it (no silent rewrite of a sampled value)."""
+    space = Torus(2)
+    given_deg = np.array([-60.0, 270.0])
+    x = torch.stack([torch.deg2rad(torch.tensor(given_deg, dtype=torch.float64)),
+                     torch.tensor([0.25, -1.5], dtype=torch.float64)], dim=1)   # cpu: a test table
+    x = space.project(x)                                                         # 270° kept as -90°
+    p = write_points(tmp_path / "s.csv", space, x, as_given={0: given_deg}, degrees=True)
+    written = np.loadtxt(p, delimiter=",", skiprows=1)
+    assert written[0, 0] == -60.0
+    assert written[1, 0] != 270.0 and abs(written[1, 0] - np.rad2deg(x[1, 0].item())) == 0
+    np.testing.assert_allclose(written[:, 1], np.rad2deg([0.25, -1.5]), rtol=0, atol=0)
+
+
 # ----- property tests -------------------------------------------------------------------------------
 def _reference(text: str):
     """An independent reading of the documented layout in plain Python: array, or None for an error."""

@@ -122,7 +122,7 @@ def summary(model, folder) -> str:
              f"  space        {model.space!r}",
              f"  data         {r.get('n_data', '?')} points from {r.get('data_file', '(Python API)')}"]
     if r.get("columns"):
-        lines.append(f"  columns      {', '.join(r['columns'])} -> the {len(r['columns'])} coordinates of the space"
+        lines.append(f"  columns      {', '.join(r['columns'])} ({len(r['columns'])} per point)"
                      + (f"; labels from {r['label_column']}" if r.get("label_column") else ""))
     if r.get("ignored"):
         lines.append(f"  ignored      {', '.join(r['ignored'])}")
@@ -164,8 +164,9 @@ def _output_names(model, options):
     return None
 
 
-def _given_from_rows(model, names, rows, options, where) -> dict:
-    """``given`` for Model.sample from named values in the data file's units (one row or one per sample)."""
+def _given_from_rows(model, names, rows, options, where) -> tuple[dict, dict]:
+    """``given`` for Model.sample from named values in the data file's units (one row or one per sample), and
+    the values as given by column index (one value or one per sample), for writing them back exactly."""
     import torch
 
     columns = _column_names(model, options)
@@ -177,18 +178,20 @@ def _given_from_rows(model, names, rows, options, where) -> dict:
                              field="fix")
         index.append(columns.index(name))
     if "sequences" in space.capabilities:
-        return {i: [row[k] for row in rows] if len(rows) > 1 else rows[0][k] for k, i in enumerate(index)}
+        return {i: [row[k] for row in rows] if len(rows) > 1 else rows[0][k] for k, i in enumerate(index)}, {}
     try:
         values = torch.tensor([[float(v) for v in row] for row in rows], dtype=torch.float64)
     except ValueError as e:
         raise InputError(f"{where}: a fixed value is not a number ({e})", field="fix") from None
     try:
-        return space.given_from_columns(index, values, **options)
+        given = space.given_from_columns(index, values, **options)
     except InputError as e:
         raise InputError(f"{where}: {e.message}", row=e.row, field="fix") from None
+    as_given = {i: values[0, k].item() if len(rows) == 1 else values[:, k].numpy() for k, i in enumerate(index)}
+    return given, as_given
 
 
-def _parse_fix(model, fixes, options) -> dict:
+def _parse_fix(model, fixes, options) -> tuple[dict, dict]:
     names, values = [], []
     for item in fixes:
         if "=" not in item:
@@ -199,7 +202,7 @@ def _parse_fix(model, fixes, options) -> dict:
     return _given_from_rows(model, names, [values], options, "--fix")
 
 
-def _parse_given_file(model, path, options) -> dict:
+def _parse_given_file(model, path, options) -> tuple[dict, dict]:
     from heatwalk.io.tables import read_table
 
     from heatwalk.io.table_base import position_names
@@ -223,17 +226,19 @@ def cmd_sample(args) -> int:
     model = heatwalk.load(args.model)
     files_for(model.space).check_output(out)
     options = _file_options(args, model)
-    given = {}
+    asked = []                                       # (given, values as given); --fix overrides --given
     if args.given:
-        given.update(_parse_given_file(model, args.given, options))
+        asked.append(_parse_given_file(model, args.given, options))
     if args.fix:
-        given.update(_parse_fix(model, args.fix, options))
+        asked.append(_parse_fix(model, args.fix, options))
+    given = {k: v for g, _ in asked for k, v in g.items()}
+    as_given = {j: v for _, values in asked for j, v in values.items()}
     t0 = time.perf_counter()
     x = model.sample(args.n, steps=args.reverse_steps, sampler=args.sampler, seed=args.seed,
                      progress=not args.quiet, label=args.label, guidance=args.guidance, given=given or None,
                      given_method=args.given_method, device=device)
     files_for(model.space).write(out, model.space, _on_cpu(x), options, overwrite=args.overwrite,
-                                 names=_output_names(model, options))
+                                 names=_output_names(model, options), as_given=as_given)
     print(f"wrote {args.n} samples to {out} in {time.perf_counter() - t0:.1f} s")
     return 0
 

@@ -148,8 +148,8 @@ class TableFiles:
             table = read_table(path, delimiter=delimiter)
         return points_from_table(path, space, table, **options)
 
-    def write(self, path, space, x, options: dict, overwrite: bool, names=None) -> Path:
-        return write_points(path, space, x, overwrite=overwrite, names=names, **options)
+    def write(self, path, space, x, options: dict, overwrite: bool, names=None, as_given=None) -> Path:
+        return write_points(path, space, x, overwrite=overwrite, names=names, as_given=as_given, **options)
 
 
 class SequenceFiles:
@@ -189,7 +189,8 @@ class SequenceFiles:
         recs = read_records(path, alphabet=space.alphabet, **opts)
         return encode_records(recs, space, str(path))
 
-    def write(self, path, space, x, options: dict, overwrite: bool, names=None) -> Path:
+    def write(self, path, space, x, options: dict, overwrite: bool, names=None, as_given=None) -> Path:
+        """``as_given`` (fixed values of table columns) does not apply: a fixed symbol is written as itself."""
         if space.alphabet is None:
             raise InputError(f"{space!r} has no alphabet: its samples cannot be written as text", field="alphabet")
         return write_records(path, space.decode(x), overwrite=overwrite)

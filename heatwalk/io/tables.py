@@ -210,11 +210,22 @@ def _options_for_columns(space: Space, n_columns: int) -> str:
     return f"; {n_columns} columns are read with {' or '.join(ways)}"
 
 
-def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, names=None, **options) -> Path:
+#: Relative and absolute tolerance under which a written value is the round trip of a fixed one through the
+#: space's own units (e.g. degrees → radians → degrees moves -60 to -59.999999999999986, a few units in the
+#: last place; a sampled value that is not fixed differs by far more).
+ROUND_TRIP_TOLERANCE = 1e-12
+
+
+def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False, names=None, as_given=None,
+                 **options) -> Path:
     """Write points as a table with a header (format by extension), atomically.
 
     ``names`` replaces the space's column names (e.g. the names of the columns the model was fitted on);
-    it must have one name per written column.
+    it must have one name per written column. ``as_given`` maps a column index to the values a user fixed in
+    that column, in the file's units (one value, or one per point): where the written value is that value up
+    to the round trip through the space's units (:data:`ROUND_TRIP_TOLERANCE`), the value is written exactly as
+    given, so a fixed -60 degrees reads back as -60.0. Values that differ by more (an angle given as 270 and
+    kept as -90, a quaternion written with the other sign) are written as the space writes them.
     """
     check_output_format(path, "table")
     rows = space.to_rows(x, **options)
@@ -223,5 +234,9 @@ def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False
         if len(names) != len(header):
             raise InputError(f"{path}: {len(names)} column names for {len(header)} columns", field="names")
         header = list(names)
-    return write_table(path, np.asarray(torch.as_tensor(rows).detach().cpu(), dtype=np.float64), header,
-                       overwrite=overwrite)
+    values = torch.as_tensor(rows).detach().cpu().numpy().astype(np.float64)            # a writable copy
+    for j, given in (as_given or {}).items():
+        given = np.broadcast_to(np.asarray(given, dtype=np.float64), values[:, j].shape)
+        same = np.isclose(values[:, j], given, rtol=ROUND_TRIP_TOLERANCE, atol=ROUND_TRIP_TOLERANCE)
+        values[same, j] = given[same]
+    return write_table(path, values, header, overwrite=overwrite)
