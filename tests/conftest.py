@@ -20,3 +20,19 @@ def _mpmath_precision():
     mpmath.mp.dps = 50
     yield
     mpmath.mp.dps = 50
+
+
+@pytest.fixture
+def figures(monkeypatch):
+    """The matplotlib Figures a command saves through ``heatwalk.frontend.plots.save_figure``, in order."""
+    import heatwalk.frontend.plots as plots
+
+    caught = []
+    original = plots.save_figure
+
+    def keep(fig, path, **kw):
+        caught.append(fig)
+        return original(fig, path, **kw)
+
+    monkeypatch.setattr(plots, "save_figure", keep)
+    return caught

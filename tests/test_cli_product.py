@@ -195,27 +195,36 @@ def test_fixing_part_of_a_factor_is_refused(fitted, tmp_path, capsys):
     assert not out.exists()
 
 
-def test_evaluate_and_plot_draw_one_picture_per_factor_in_the_data_names(fitted, tmp_path, capsys, monkeypatch):
+def test_evaluate_and_plot_draw_one_picture_per_factor_in_the_data_names(fitted, tmp_path, capsys, figures):
     folder, data, model = fitted
     report = tmp_path / "report"
     code, out, err = run(["evaluate", str(model), str(data), "--out", str(report), "--likelihood-points", "100",
                           "--quiet"], capsys)
     assert code == 0, err
     assert (report / "data_vs_samples.png").is_file() and "MMD²" in out
-    figures = []
-    save = plots.save_figure
-
-    def keep(fig, path, **kw):
-        figures.append(fig)
-        return save(fig, path, **kw)
-
-    monkeypatch.setattr(plots, "save_figure", keep)
+    figures.clear()
     code, out, err = run(["plot", "--model", str(model), "--data", str(data), "--out", str(tmp_path / "p.png"),
                           "--n-samples", "300", "--quiet"], capsys)
     assert code == 0, err
     labels = {ax.get_xlabel() for sub in figures[0].subfigs for ax in sub.axes} | \
         {ax.get_ylabel() for sub in figures[0].subfigs for ax in sub.axes}
     assert {"phi (deg)", "x", "y"} <= labels
+
+
+def test_picture_flags_reach_every_factor_picture_that_takes_them(fitted, tmp_path, capsys, figures):
+    """--bins 20 --smoothing 0 on the product: the R^d factor's density image is 20 x 20 cells (not its default
+    72); a flag no factor's picture takes (--projection, of the sphere's map) is refused, naming the ones taken."""
+    folder, data, model = fitted
+    code, _, err = run(["plot", "--model", str(model), "--data", str(data), "--out", str(tmp_path / "p.png"),
+                        "--n-samples", "200", "--bins", "20", "--smoothing", "0", "--quiet"], capsys)
+    assert code == 0, err
+    plane = figures[-1].subfigs[1]
+    shapes = {im.get_array().shape for ax in plane.axes for im in ax.get_images()}
+    assert shapes == {(20, 20)}
+    code, _, err = run(["plot", "--model", str(model), "--data", str(data), "--out", str(tmp_path / "q.png"),
+                        "--projection", "hammer", "--quiet"], capsys)
+    assert code == 2 and "--projection does not apply to the 'factors' picture" in err and "--bins" in err
+    assert not (tmp_path / "q.png").exists()
 
 
 def test_the_factors_key_in_a_config_file(tmp_path, capsys):

@@ -2,7 +2,8 @@
 not blank, its axes carry the labels of the data (read back from the Figure the command drew), the format
 follows the extension, and bad requests are one line with exit status 2 and nothing written.
 
-The Figures are caught by wrapping ``heatwalk.frontend.plots.save_figure`` (the command saves through it).
+The Figures are caught by the ``figures`` fixture of conftest.py (it wraps ``heatwalk.frontend.plots.save_figure``,
+which the command saves through).
 The picture of a product (``factors``) read from a data file is checked in tests/test_cli_product.py.
 """
 
@@ -46,20 +47,6 @@ def _check_png(path, size):
     rgb = img[..., :3]
     drawn = np.abs(rgb - rgb[0, 0]).sum(-1) > 0.05
     assert drawn.mean() > 0.02, f"only {drawn.mean():.4f} of the pixels are drawn"
-
-
-@pytest.fixture
-def figures(monkeypatch):
-    """The Figures the command saves, in order."""
-    caught = []
-    original = plots.save_figure
-
-    def keep(fig, path, **kw):
-        caught.append(fig)
-        return original(fig, path, **kw)
-
-    monkeypatch.setattr(plots, "save_figure", keep)
-    return caught
 
 
 def run(argv, capsys):

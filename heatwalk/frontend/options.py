@@ -52,22 +52,54 @@ def add_picture_option_flags(parser) -> None:
                       _declared_picture_options())
 
 
-def chosen_picture_options(args, plot_kind: str) -> dict:
-    """The picture options the user set, checked against the picture ``plot_kind`` declares."""
-    from heatwalk.frontend.plots import PLOT_KINDS
+def chosen_picture_options(args, space) -> dict:
+    """The picture options the user set, checked against the picture ``space`` declares.
 
-    declared = {o.name for o in PLOT_KINDS[plot_kind].options}
+    A picture drawn factor by factor (a product's: its draw takes ``factor_options``) gives each option to
+    every factor whose picture declares it, as ``factor_options``; an option that no picture of the figure
+    takes is refused, naming the ones it does take.
+    """
     chosen = {}
-    for name, decls in _declared_picture_options().items():
+    for name in _declared_picture_options():
         value = getattr(args, name, None)
-        if value is None or value is False:
-            continue
-        if name not in declared:
-            takes = ", ".join(o.flag for o in PLOT_KINDS[plot_kind].options) or "none"
-            raise InputError(f"{decls[0][1].flag} does not apply to the {plot_kind!r} picture (its options: "
-                             f"{takes})", field=name)
-        chosen[name] = value
-    return chosen
+        if value is not None and value is not False:
+            chosen[name] = value
+    options, used, takes = _picture_options_for(space, chosen)
+    for name in chosen:
+        if name not in used:
+            flags = ", ".join(dict.fromkeys(takes)) or "none"
+            raise InputError(f"{_flag(name)} does not apply to the {space.plot_kind!r} picture (its options: "
+                             f"{flags})", field=name)
+    return options
+
+
+def _flag(name: str) -> str:
+    return _declared_picture_options()[name][0][1].flag
+
+
+def _picture_options_for(space, chosen: dict):
+    """(the options of ``chosen`` the picture of ``space`` takes, their names, the flags it declares)."""
+    from heatwalk.frontend.plots import PLOT_KINDS
+    from heatwalk.frontend.plots.figures import option_names
+
+    picture = PLOT_KINDS.get(getattr(space, "plot_kind", None))
+    if picture is None:  # no picture: nothing applies (drawing it names the factor that has none)
+        return {}, set(), []
+    if "factor_options" in option_names(picture.draw):
+        parts = [_picture_options_for(f, chosen) for f in space.factors]
+        return ({"factor_options": [p[0] for p in parts]}, set().union(*(p[1] for p in parts)),
+                [flag for p in parts for flag in p[2]])
+    options = {o.name: chosen[o.name] for o in picture.options if o.name in chosen}
+    return options, set(options), [o.flag for o in picture.options]
+
+
+def merge_picture_options(first: dict, second: dict) -> dict:
+    """``first`` updated by ``second``; the per-factor dicts of ``factor_options`` are merged factor by factor."""
+    out = first | second
+    if "factor_options" in first and "factor_options" in second:
+        out["factor_options"] = [merge_picture_options(a, b)
+                                 for a, b in zip(first["factor_options"], second["factor_options"], strict=True)]
+    return out
 
 
 def _add_option_flags(group, declared: dict) -> None:

@@ -133,7 +133,7 @@ def cmd_plot(args) -> int:
     import heatwalk
     from heatwalk.frontend.commands import settle
     from heatwalk.frontend.flags import plot_flags
-    from heatwalk.frontend.options import chosen_picture_options
+    from heatwalk.frontend.options import chosen_picture_options, merge_picture_options
     from heatwalk.frontend.plots import picture_for, plot, plot_losses, save_figure
 
     device = settle(args, plot_flags())
@@ -153,7 +153,8 @@ def cmd_plot(args) -> int:
     model = heatwalk.load(args.model) if args.model else None
     space, data, samples, reading, columns = _read_inputs(args, model)
     picture = picture_for(space)
-    options = chosen_picture_options(args, space.plot_kind) | picture_units_and_names(space, reading, columns)
+    options = merge_picture_options(chosen_picture_options(args, space),
+                                    picture_units_and_names(space, reading, columns))
     parts = []
     if model is not None and samples is None:
         if options.get("density") == "samples" or not picture.model_density(space):
