@@ -33,6 +33,7 @@ from heatwalk.frontend.plots.figures import (
     check_model_space, check_names, choose_density, density_cmap,
     density_norm, log_prob_on, points, render, spread,
 )
+from heatwalk.frontend.plots.pairs import density_caption, draw_pairs_layout, pairs_size
 from heatwalk.spaces.base import Option
 
 _RADIAN_TICKS = ([-math.pi, -math.pi / 2, 0.0, math.pi / 2, math.pi], ["−π", "−π/2", "0", "π/2", "π"])
@@ -57,12 +58,7 @@ def shows_model_density(space) -> bool:
 
 
 def default_size(space) -> tuple[int, int]:
-    n = space.n
-    if n == 1:
-        return (800, 450)
-    if n == 2:
-        return (760, 640)
-    return (min(240 * n + 160, 2400), min(230 * n + 80, 2300))
+    return pairs_size(space.n)
 
 
 class _Units:
@@ -128,21 +124,14 @@ def draw_angles(fig, space, data, samples, *, model=None, density=None, columns=
             return model_density(model, len(cols), grid)
         return histogram_density(pts[:, cols].numpy(), bins, smoothing)
 
-    m = None if pts is None else pts.shape[0]
-    how = (f"model density exp(log_prob) on a {grid}-cell grid per angle" if source == "model" else
-           f"{source} density: histogram of {m} {'samples' if source == 'samples' else 'points'}, "
-           f"{bins} bins per angle, smoothed σ = {smoothing:g} bin")
+    how = density_caption(source, None if pts is None else pts.shape[0], grid, bins, smoothing, "angle")
     shown = None if data is None else data[torch.as_tensor(spread(data.shape[0], max_points))].numpy() * units.scale
-    if n == 1:
-        _one_angle(fig.add_subplot(), density_of([0]), units, names[0], how, data, 0, source)
-    elif n == 2:
-        ax = fig.add_subplot()
-        dens = density_of([0, 1])
-        im = _pair(ax, dens, units, names, shown, (0, 1), density_norm(color_scale, dens.max() / units.scale ** 2))
-        fig.colorbar(im, ax=ax, label=f"density (1/{units.name}²)")
-        ax.set_title(how, fontsize="small")
-    else:
-        _all_pairs(fig, n, density_of, units, names, shown, data, how, source, color_scale)
+    draw_pairs_layout(
+        fig, n, names, how=how, source=source, color_scale=color_scale, unit=units.name, scale=units.scale,
+        shown=shown, pair_density=density_of,
+        one=lambda ax, i, caption, small: _one_angle(ax, density_of([i]), units, names[i], caption, data, i, source,
+                                                     sparse=small),
+        pair=lambda ax, dens, cols, norm, small: _pair(ax, dens, units, names, shown, cols, norm, small=small))
 
 
 def _one_angle(ax, dens: np.ndarray, units: _Units, name: str, how: str, data, col: int, source: str,
@@ -174,33 +163,6 @@ def _pair(ax, dens: np.ndarray, units: _Units, names, shown, cols, norm, small: 
     units.axis(ax, "x", names[cols[0]], sparse=small)
     units.axis(ax, "y", names[cols[1]], sparse=small)
     return im
-
-
-def _all_pairs(fig, n, density_of, units, names, shown, data, how, source, color_scale) -> None:
-    """n × n grid: pair (j, i) below the diagonal, angle i's 1-D density on it; one colour scale."""
-    axes = fig.subplots(n, n, squeeze=False)
-    pairs = {(i, j): density_of([j, i]) for i in range(n) for j in range(i)}
-    norm = density_norm(color_scale, max(float(d.max()) for d in pairs.values()) / units.scale ** 2)
-    im = None
-    for i in range(n):
-        for j in range(n):
-            ax = axes[i, j]
-            if j > i:
-                ax.set_axis_off()
-            elif j == i:
-                _one_angle(ax, density_of([i]), units, names[i], "", data, i, source, sparse=True)
-                ax.set_title(names[i], fontsize="small")
-                ax.get_legend().remove()
-            else:
-                im = _pair(ax, pairs[(i, j)], units, names, shown, (j, i), norm, small=True)
-                if ax.get_legend() is not None:
-                    ax.get_legend().remove()
-    corner = axes[0, n - 1]  # empty: holds the colour bar and the legend in words
-    cax = corner.inset_axes([0.05, 0.25, 0.9, 0.1])
-    fig.colorbar(im, cax=cax, orientation="horizontal", label=f"density of each pair (1/{units.name}²)")
-    note = "" if data is None else f"\nred dots: data ({shown.shape[0]} shown)\nbars: histograms of the data"
-    words = how.replace(": ", ":\n", 1) + note + f"\ncurves: {source} density"
-    corner.text(0.0, 1.0, words, ha="left", va="top", fontsize="small", transform=corner.transAxes)
 
 
 def plot_angles(space, data=None, samples=None, *, model=None, size=None, dpi: int = 100, title: str = "",

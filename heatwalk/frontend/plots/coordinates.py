@@ -35,6 +35,7 @@ from heatwalk.frontend.plots.figures import (
     check_model_space, check_names, choose_density, density_cmap, density_norm, log_prob_on, points, render,
     spread,
 )
+from heatwalk.frontend.plots.pairs import density_caption, draw_pairs_layout, pairs_size
 from heatwalk.spaces.base import Option
 
 #: the options the command line offers (``columns`` follows the data file's columns)
@@ -60,12 +61,7 @@ def shows_model_density(space) -> bool:
 
 
 def default_size(space) -> tuple[int, int]:
-    d = space.d
-    if d == 1:
-        return (800, 450)
-    if d == 2:
-        return (760, 640)
-    return (min(240 * d + 160, 2400), min(230 * d + 80, 2300))
+    return pairs_size(space.d)
 
 
 def window(x: np.ndarray) -> np.ndarray:
@@ -122,21 +118,13 @@ def draw_coordinates(fig, space, data, samples, *, model=None, density=None, col
             return model_density(model, limits[cols], grid)
         return histogram_density(pts[:, cols].numpy(), limits[cols], bins, smoothing)
 
-    m = None if pts is None else pts.shape[0]
-    how = (f"model density exp(log_prob) on a {grid}-cell grid per coordinate" if source == "model" else
-           f"{source} density: histogram of {m} {'samples' if source == 'samples' else 'points'}, "
-           f"{bins} bins per coordinate, smoothed σ = {smoothing:g} bin")
+    how = density_caption(source, None if pts is None else pts.shape[0], grid, bins, smoothing, "coordinate")
     shown = None if data is None else data[torch.as_tensor(spread(data.shape[0], max_points))].numpy()
-    if d == 1:
-        _one(fig.add_subplot(), density_of([0]), limits[0], names[0], how, data, 0, source)
-    elif d == 2:
-        ax = fig.add_subplot()
-        dens = density_of([0, 1])
-        im = _pair(ax, dens, limits, names, shown, (0, 1), density_norm(color_scale, dens.max()))
-        fig.colorbar(im, ax=ax, label="density (1/unit²)")
-        ax.set_title(how, fontsize="small")
-    else:
-        _all_pairs(fig, d, density_of, limits, names, shown, data, how, source, color_scale)
+    draw_pairs_layout(
+        fig, d, names, how=how, source=source, color_scale=color_scale, unit="unit", shown=shown,
+        pair_density=density_of,
+        one=lambda ax, i, caption, small: _one(ax, density_of([i]), limits[i], names[i], caption, data, i, source),
+        pair=lambda ax, dens, cols, norm, small: _pair(ax, dens, limits, names, shown, cols, norm, small=small))
 
 
 def _one(ax, dens: np.ndarray, limits, name: str, how: str, data, col: int, source: str) -> None:
@@ -171,33 +159,6 @@ def _pair(ax, dens: np.ndarray, limits, names, shown, cols, norm, small: bool = 
     ax.set_xlabel(names[cols[0]])
     ax.set_ylabel(names[cols[1]])
     return im
-
-
-def _all_pairs(fig, d, density_of, limits, names, shown, data, how, source, color_scale) -> None:
-    """d × d grid: pair (j, i) below the diagonal, coordinate i's 1-D density on it; one colour scale."""
-    axes = fig.subplots(d, d, squeeze=False)
-    pairs = {(i, j): density_of([j, i]) for i in range(d) for j in range(i)}
-    norm = density_norm(color_scale, max(float(p.max()) for p in pairs.values()))
-    im = None
-    for i in range(d):
-        for j in range(d):
-            ax = axes[i, j]
-            if j > i:
-                ax.set_axis_off()
-            elif j == i:
-                _one(ax, density_of([i]), limits[i], names[i], "", data, i, source)
-                ax.set_title(names[i], fontsize="small")
-                ax.get_legend().remove()
-            else:
-                im = _pair(ax, pairs[(i, j)], limits, names, shown, (j, i), norm, small=True)
-                if ax.get_legend() is not None:
-                    ax.get_legend().remove()
-    corner = axes[0, d - 1]  # empty: holds the colour bar and the legend in words
-    cax = corner.inset_axes([0.05, 0.25, 0.9, 0.1])
-    fig.colorbar(im, cax=cax, orientation="horizontal", label="density of each pair (1/unit²)")
-    note = "" if data is None else f"\nred dots: data ({shown.shape[0]} shown)\nbars: histograms of the data"
-    words = how.replace(": ", ":\n", 1) + note + f"\ncurves: {source} density"
-    corner.text(0.0, 1.0, words, ha="left", va="top", fontsize="small", transform=corner.transAxes)
 
 
 def plot_coordinates(space, data=None, samples=None, *, model=None, size=None, dpi: int = 100, title: str = "",
