@@ -305,10 +305,11 @@ class Space(ABC):
         self.check_file_options(options)
         return [f"x{i}" for i in range(self.n_columns)]
 
-    def given_from_columns(self, index: list[int], values: torch.Tensor, **options) -> dict:
+    def given_from_columns(self, index: list[int], values: torch.Tensor, names=None, **options) -> dict:
         """``given`` for ``Model.sample`` from the values (n, len(index)) of table columns ``index`` (0-based),
         in the file's units (read with ``options``): on a space of flat coordinates ("coordinates") column j
-        is coordinate j. A space without fixable columns refuses; products override (by factor)."""
+        is coordinate j. A space without fixable columns refuses; products override (by factor). ``names``
+        (the table's column names, or None) name columns in errors."""
         if "coordinates" not in self.capabilities:
             raise InputError(f"{self!r} has no coordinates that can be fixed", field="fix")
         full = torch.zeros(values.shape[0], self.n_columns_for(**options), dtype=DTYPE)  # cpu: parsed values

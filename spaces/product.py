@@ -243,10 +243,14 @@ class Product(Space):
         return torch.cat([f.to_rows(xi, **o).to(DTYPE)
                           for f, xi, o in zip(self.factors, x, self.factor_options(options))], dim=1)
 
-    def given_from_columns(self, index: list[int], values: torch.Tensor, **options) -> dict:
+    def given_from_columns(self, index: list[int], values: torch.Tensor, names=None, **options) -> dict:
         """``given`` by factor from values of table columns ``index`` (n, len(index)), in the file's units: a
         factor is fixed when all its columns are given; some but not all of a factor's columns is an error
-        (a factor of a product is fixed whole)."""
+        (a factor of a product is fixed whole) naming the columns by ``names`` (all the table's column names)
+        when given, else by position (1-based)."""
+        def called(columns):
+            return ", ".join(names[c] for c in columns) if names else str([c + 1 for c in columns])
+
         where = dict(zip(index, range(len(index))))
         given = {}
         for i, (f, o, span) in enumerate(zip(self.factors, self.factor_options(options),
@@ -256,8 +260,8 @@ class Product(Space):
                 continue
             if len(have) != len(span):
                 missing = [c for c in span if c not in where]
-                raise InputError(f"factor {i} ({f!r}) is fixed whole: give all of its columns "
-                                 f"{[c + 1 for c in span]} (missing {[c + 1 for c in missing]})", field="fix")
+                raise InputError(f"factor {i} ({f!r}) is fixed whole: give all of its columns, {called(span)} "
+                                 f"(missing {called(missing)})", field="fix")
             part = values[:, [where[c] for c in span]]
             try:
                 given[i] = f.from_rows(part if isinstance(f, Manifold) else part.round().to(torch.int64), **o)

@@ -191,7 +191,12 @@ def test_fixing_part_of_a_factor_is_refused(fitted, tmp_path, capsys):
     folder, data, model = fitted
     out = tmp_path / "part.csv"
     code, _, err = run(["sample", str(model), "--n", "5", "--out", str(out), "--fix", "x=1", "--quiet"], capsys)
-    assert code == 2 and "is fixed whole" in err and "--process" not in err
+    assert code == 2 and "is fixed whole: give all of its columns, x, y (missing y)" in err and "--process" not in err
+    assert not out.exists()
+    given = tmp_path / "given.csv"
+    _write(given, {"phi": [10.0, 20.0, 30.0]})
+    code, _, err = run(["sample", str(model), "--n", "5", "--out", str(out), "--given", str(given), "--quiet"], capsys)
+    assert code == 2 and "3 rows; give one row" in err and "(--n 5)" in err
     assert not out.exists()
 
 

@@ -184,7 +184,7 @@ def _given_from_rows(model, names, rows, options, where) -> tuple[dict, dict]:
     except ValueError as e:
         raise InputError(f"{where}: a fixed value is not a number ({e})", field="fix") from None
     try:
-        given = space.given_from_columns(index, values, **options)
+        given = space.given_from_columns(index, values, names=columns, **options)
     except InputError as e:
         raise InputError(f"{where}: {e.message}", row=e.row, field="fix") from None
     as_given = {i: values[0, k].item() if len(rows) == 1 else values[:, k].numpy() for k, i in enumerate(index)}
@@ -202,14 +202,16 @@ def _parse_fix(model, fixes, options) -> tuple[dict, dict]:
     return _given_from_rows(model, names, [values], options, "--fix")
 
 
-def _parse_given_file(model, path, options) -> tuple[dict, dict]:
-    from heatwalk.io.tables import read_table
-
+def _parse_given_file(model, path, options, n: int) -> tuple[dict, dict]:
     from heatwalk.io.table_base import position_names
+    from heatwalk.io.tables import read_table
 
     table = read_table(path)
     if table.names == position_names(len(table.names)):
         raise InputError(f"{path}: a --given table needs a header naming its columns", field="given")
+    if table.values.shape[0] not in (1, n):
+        raise InputError(f"{path}: {table.values.shape[0]} rows; give one row (the same values for every sample) "
+                         f"or one row per sample (--n {n})", field="given")
     return _given_from_rows(model, table.names, table.values.tolist(), options, str(path))
 
 
@@ -228,7 +230,7 @@ def cmd_sample(args) -> int:
     options = _file_options(args, model)
     asked = []                                       # (given, values as given); --fix overrides --given
     if args.given:
-        asked.append(_parse_given_file(model, args.given, options))
+        asked.append(_parse_given_file(model, args.given, options, args.n))
     if args.fix:
         asked.append(_parse_fix(model, args.fix, options))
     given = {k: v for g, _ in asked for k, v in g.items()}
