@@ -207,6 +207,8 @@ def test_evaluate_and_plot_draw_one_picture_per_factor_in_the_data_names(fitted,
                           "--quiet"], capsys)
     assert code == 0, err
     assert (report / "data_vs_samples.png").is_file() and "MMD²" in out
+    assert "probability-flow ODE of the manifold factors jointly (exact divergence" in out   # no finite factor
+    assert "lower bound" not in out
     figures.clear()
     code, out, err = run(["plot", "--model", str(model), "--data", str(data), "--out", str(tmp_path / "p.png"),
                           "--n-samples", "300", "--quiet"], capsys)

@@ -71,8 +71,16 @@ class ProductObjective(Objective):
     #: whole factors are fixed by holding them known, as the network was trained to condition on them
     default_given_method = "trained"
 
-    likelihood_method = ("probability-flow ODE of the manifold factors plus the ELBO of the finite factors "
-                         "given them (a lower bound when a factor is finite)")
+    @property
+    def likelihood_method(self) -> str:  # what evaluate reports: the parts this product's log p is made of
+        manifold = self.space.is_manifold
+        if all(manifold):
+            return ("probability-flow ODE of the manifold factors jointly (exact divergence; Hutchinson's estimator "
+                    "above 3 dimensions)")
+        if not any(manifold):
+            return "continuous-time ELBO of the finite factors jointly, a lower bound on log p"
+        return ("probability-flow ODE of the manifold factors plus the ELBO of the finite factors given them, "
+                "a lower bound on log p")
 
     @property
     def likelihood_is_bound(self) -> bool:  # a product with a finite factor reports an ELBO-based bound
