@@ -317,6 +317,12 @@ class Space(ABC):
         converted = self.from_rows(full, **options)
         return {i: converted[:, i] for i in index}
 
+    def fitted_to(self, x) -> "Space":
+        """The space to fit points ``x`` on: this one, unless it adapts its process to the data (R^d takes the
+        data's location and scale where they were not given; see :class:`heatwalk.spaces.Euclidean`). Called by
+        ``fit`` before training; the model keeps the space it returns."""
+        return self
+
     def plot_coordinates(self, x: torch.Tensor):
         """2-D picture coordinates ``(coords (n, 2) numpy, (xlabel, ylabel), (xlim, ylim))``, or None."""
         return None

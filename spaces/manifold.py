@@ -96,6 +96,17 @@ class Manifold(Space):
         """
         return _combine(z, self.tangent_basis(x), len(self.ambient_shape))
 
+    def tangent_from_network(self, x: torch.Tensor, v: torch.Tensor) -> torch.Tensor:
+        """The tangent vector at ``x`` that a network's raw output ``v`` (shape of x) stands for. Default: v
+        projected to the tangent space; a space whose metric is not the ambient one reads v in its orthonormal
+        frame, so the output is of order one whatever the units (R^d: S v)."""
+        return self.to_tangent(x, v)
+
+    def gradient_to_tangent(self, x: torch.Tensor, grad: torch.Tensor) -> torch.Tensor:
+        """The Riemannian gradient at ``x`` of a function whose ambient (ordinary) gradient is ``grad``. Default:
+        its tangent projection, exact where the metric is the one induced by the ambient inner product."""
+        return self.to_tangent(x, grad)
+
     # ----- the heat flow ---------------------------------------------------------------------
     def score(self, xt: torch.Tensor, x0: torch.Tensor, t) -> torch.Tensor:
         """Riemannian gradient in ``xt`` of ``log_kernel(xt, x0, t)``: a tangent vector at xt."""

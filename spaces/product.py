@@ -79,6 +79,8 @@ class Product(Space):
         self.dim = sum(f.dim for f in factors)
         self.ambient_shape = ()  # points are tuples; see the factors' shapes
         self.is_manifold = tuple(isinstance(f, Manifold) for f in factors)
+        # bounded features when every manifold factor's are (a finite factor's one-hot codes are bounded)
+        self.bounded_embedding = all(f.bounded_embedding for f, m in zip(factors, self.is_manifold) if m)
 
     def config(self) -> dict:
         return {"kind": "product", "factors": [f.config() for f in self.factors]}
@@ -104,6 +106,11 @@ class Product(Space):
 
     def take(self, x, index):
         return tuple(xi[index] for xi in x)
+
+    def fitted_to(self, x) -> "Product":
+        """Every factor fitted to its part of the points (:meth:`Space.fitted_to`)."""
+        factors = [f.fitted_to(xi) for f, xi in zip(self.factors, x)]
+        return self if all(a is b for a, b in zip(factors, self.factors)) else Product(*factors)
 
     def concat(self, batches):
         return tuple(torch.cat([b[i] for b in batches], 0) for i in range(len(self.factors)))

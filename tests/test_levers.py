@@ -262,3 +262,24 @@ def test_size_rule_sets_only_the_steps_of_sequence_objectives():
     x = torch.randint(4, (50, 3), generator=torch.Generator().manual_seed(0))
     model = heatwalk.fit(space, x, size_rule=True, steps=2, batch_size=16, progress=False)
     assert model.network.config()["d_model"] == 64  # the transformer's own default, untouched by the rule
+
+
+def test_a_product_takes_the_network_options_of_score_matching():
+    """The product's one network is built like score matching's (MLP or residual, time skip on the residual
+    one); its features are bounded exactly when every manifold factor's are."""
+    from heatwalk.core.networks.mlp import MLPDenoiser
+    from heatwalk.core.networks.residual import ResidualDenoiser
+    from heatwalk.spaces import SO3, Euclidean, Product, Sphere
+
+    assert Product(Torus(2), SO3()).bounded_embedding and Product(Sphere(2), Categories(3, 2)).bounded_embedding
+    assert not Product(Sphere(2), Euclidean(1)).bounded_embedding
+    space = Product(Torus(1), Euclidean(1))
+    g = torch.Generator().manual_seed(0)
+    x = (space.factors[0].random_uniform(40, g), space.factors[1].prior_sample(40, g))
+    skip = heatwalk.fit(space, x, steps=1, batch_size=8, progress=False,
+                        network={"residual": True, "time_skip": True, "hidden": 16})
+    assert type(skip.network) is ResidualDenoiser and skip.network.skip_matrix is not None
+    mlp = heatwalk.fit(space, x, steps=1, batch_size=8, progress=False, network={"residual": False, "hidden": 16})
+    assert type(mlp.network) is MLPDenoiser
+    with pytest.raises(InputError, match="unknown network options for a product: \\['width'\\]"):
+        heatwalk.fit(space, x, steps=1, batch_size=8, progress=False, network={"width": 16})

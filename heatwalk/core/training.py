@@ -196,6 +196,7 @@ def _fit(space, data, share: parallel.Share, device: torch.device, o: _Settings)
     n_data = source.n
     if n_data is not None and n_data < 2:
         raise InputError(f"need at least 2 data points to fit, got {n_data}", field="data")
+    space = _fitted_space(space, source, n_data)
     classes, label_idx = (None, None) if o.labels is None else _labels(o.labels, n_data, source, device)
     objective = make_objective(space, time_range=o.time_range, classes=classes, label_dropout=o.label_dropout,
                                inpainting=o.inpainting, time_tilt=o.time_tilt)
@@ -302,6 +303,16 @@ def _spread(space, source, n_data):
     idx = torch.linspace(0, n_data - 1, min(n_data, SPREAD_MAX_POINTS)).round().long()  # cpu: row ids
     x = source.batch(idx)
     return sizing.embedding_spread(space, x)
+
+
+def _fitted_space(space, source, n_data):
+    """The space adapted to the training data (:meth:`heatwalk.spaces.Space.fitted_to`; R^d takes the data's mean
+    and standard deviation as its location and scale), from the data's rows (up to SPREAD_MAX_POINTS of them,
+    spread evenly over the data); the space as given for an iterable of batches, whose size is unknown."""
+    if n_data is None:
+        return space
+    idx = torch.linspace(0, n_data - 1, min(n_data, SPREAD_MAX_POINTS)).round().long()  # cpu: row ids
+    return space.fitted_to(source.batch(idx))
 
 
 def _apply_size_rule(o: _Settings, n_data, space, source, objective) -> _Settings:

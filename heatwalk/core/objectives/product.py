@@ -36,7 +36,7 @@ from torch import nn
 from heatwalk.checks import check_number
 from heatwalk.core.conditioning import Conditioning, combine_guidance
 from heatwalk.core.fields import ProductField
-from heatwalk.core.networks.mlp import MLPDenoiser
+from heatwalk.core.networks import point_denoiser
 from heatwalk.core.objectives.base import Objective
 from heatwalk.core.objectives.discrete_elbo import DiscreteELBO
 from heatwalk.core.objectives.score_matching import ScoreMatching
@@ -106,11 +106,11 @@ class ProductObjective(Objective):
     def condition_dim(self) -> int:
         return super().condition_dim + 2 * len(self.space.factors)
 
-    def default_network(self, hidden: int = 256, depth: int = 3, **extra) -> nn.Module:
-        if extra:
-            raise InputError(f"unknown network options for a product: {sorted(extra)}; accepted: depth, hidden",
-                             field="network")
-        return MLPDenoiser(self.space.embed_dim, self.condition_dim, sum(self.out_sizes), hidden, depth)
+    def default_network(self, **options) -> nn.Module:
+        """One network for every factor, on their features side by side: the MLP or the residual network, with
+        the options of score matching (:func:`heatwalk.core.networks.point_denoiser`)."""
+        return point_denoiser(self.space.embed_dim, self.condition_dim, sum(self.out_sizes), who="a product",
+                              **options)
 
     def _condition(self, tau, labels, roles):
         flags = torch.cat([(roles == KNOWN).double(), (roles == DROPPED).double()], dim=-1)
@@ -128,7 +128,7 @@ class ProductObjective(Objective):
             chunk = raw[:, j:j + size]
             j += size
             if m:
-                scaled = part.space.to_tangent(xi, chunk.reshape(xi.shape))
+                scaled = part.space.tangent_from_network(xi, chunk.reshape(xi.shape))
                 out.append(scaled / part._time_column(ti))
             else:
                 out.append(part._restrict(chunk.reshape(xi.shape[0], part.space.L, part.space.K), xi, ti))
@@ -269,7 +269,7 @@ class ProductObjective(Objective):
         for f, xi, o, g, m in zip(sp.factors, xs, outs, grads, sp.is_manifold):
             g = torch.zeros_like(wrt[len(out)]) if g is None else g
             if m:
-                out.append((o + c.guide_scale * f.to_tangent(xi, g)).detach())
+                out.append((o + c.guide_scale * f.gradient_to_tangent(xi, g)).detach())
             else:
                 out.append(torch.log_softmax(o + c.guide_scale * g.masked_fill(~torch.isfinite(o), 0.0), -1).detach())
         return out

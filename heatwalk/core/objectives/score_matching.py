@@ -9,8 +9,7 @@ from torch import nn
 
 from heatwalk.core.conditioning import Conditioning, combine_guidance, guide_gradient
 from heatwalk.core.fields import ScoreField
-from heatwalk.core.networks.mlp import MLPDenoiser
-from heatwalk.core.networks.residual import ResidualDenoiser
+from heatwalk.core.networks import point_denoiser
 from heatwalk.core.objectives.base import Objective
 from heatwalk.core.parallel import WHOLE, Share
 from heatwalk.errors import InputError
@@ -43,33 +42,19 @@ class ScoreMatching(Objective):
         super().__init__(space, schedule, classes, label_dropout, inpainting)
         self._out_dim = math.prod(space.ambient_shape)
 
-    def default_network(self, hidden: int = 256, depth: int = 3, fourier_features: int = 0,
-                        fourier_scale: float = 1.0, residual: bool = False, time_skip: bool = False,
-                        **extra) -> nn.Module:
+    def default_network(self, **options) -> nn.Module:
         """The MLP (``residual=False``) or the residual network with time in every block
         (:class:`heatwalk.core.networks.residual.ResidualDenoiser`), same size options; ``time_skip`` (residual
-        network only): its time-dependent linear map of the features added to the output."""
-        if extra:
-            raise InputError(f"unknown network options for score matching: {sorted(extra)}; accepted: depth, "
-                             f"fourier_features, fourier_scale, hidden, residual, time_skip", field="network")
-        for key, value in (("residual", residual), ("time_skip", time_skip)):
-            if not isinstance(value, bool):
-                raise InputError(f"network option {key!r} must be true or false, got {value!r}", field="network")
-        if not residual:
-            if time_skip:
-                raise InputError("network option 'time_skip' belongs to the residual network; add "
-                                 "'residual': true", field="network")
-            return MLPDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth,
-                               fourier_features, fourier_scale)
-        return ResidualDenoiser(self.space.embed_dim, self.condition_dim, self._out_dim, hidden, depth,
-                                fourier_features, fourier_scale, time_skip)
+        network only): its time-dependent linear map of the features added to the output
+        (:func:`heatwalk.core.networks.point_denoiser`)."""
+        return point_denoiser(self.space.embed_dim, self.condition_dim, self._out_dim, **options)
 
     def scaled_score(self, net: nn.Module, x: torch.Tensor, t: torch.Tensor, labels=None, known=None) -> torch.Tensor:
         """sqrt(t) s_θ(x, t) as a float64 tangent vector at x (``known``: coordinate flags of inpainting models)."""
         feats = self.space.embed(x).float()
         tf = self.condition_features(t, labels, known).float()
         raw = net(feats, tf).double().reshape(x.shape)
-        return self.space.to_tangent(x, raw)
+        return self.space.tangent_from_network(x, raw)
 
     def _time_column(self, t: torch.Tensor) -> torch.Tensor:
         return t.sqrt().reshape(-1, *([1] * len(self.space.ambient_shape)))
@@ -150,7 +135,7 @@ class ScoreMatching(Objective):
                 xr = x.detach().requires_grad_(True)
                 s = guided(xr, t)
                 extra = self._gradient_terms(xr, s, t, c)
-            return (s + self.space.to_tangent(xr, extra)).detach()
+            return (s + self.space.gradient_to_tangent(xr, extra)).detach()
 
         constrain = None
         if c.given is not None:
@@ -178,10 +163,13 @@ def _reconstruction_gradient(space, x, x0_hat, t, part) -> torch.Tensor:
     rows = [torch.autograd.grad(x0_hat[:, i].sum(), x, retain_graph=True)[0] for i in known]
     jk = torch.stack(rows, dim=1)                                               # (n, k, d)
     jkk = jk[:, :, known]
-    scale = space.denoised_scale(t).reshape(-1, 1, 1)
-    cov = scale * 0.5 * (jkk + jkk.transpose(-1, -2))
-    # the Tweedie covariance estimate is kept positive definite: eigenvalues at least 1% of c_t
+    # Cov[x_0 | x_t] = J diag(c): c one value per row (scalar c_t) or one per coordinate (R^d scaled by S)
+    c = space.denoised_scale(t)
+    c = c.reshape(-1, 1).expand(-1, len(known)) if c.dim() == 1 else c[:, known]
+    full = jkk * c.unsqueeze(1)
+    cov = 0.5 * (full + full.transpose(-1, -2))
+    # the Tweedie covariance estimate is kept positive definite: eigenvalues at least 1% of the smallest c
     evals, evecs = torch.linalg.eigh(cov)
-    evals = torch.maximum(evals, 0.01 * scale.reshape(-1, 1))
+    evals = torch.maximum(evals, 0.01 * c.amin(dim=1, keepdim=True))
     solved = evecs @ ((evecs.transpose(-1, -2) @ residual.unsqueeze(-1)) / evals.unsqueeze(-1))
     return (jk.transpose(-1, -2) @ solved).squeeze(-1).detach()
