@@ -132,6 +132,7 @@ def run_dataset(name, cfg, progress, independent):
         print(f"[{name}] {label}: network {network}", flush=True)
         out["variants"][label] = {"options": network, **fit_and_score(space, train, held, cfg["steps"], network,
                                                                       progress)}
+        _report(name, label, out["variants"][label])
     default = heatwalk.fit(space, space.take(train, slice(0, 64)), steps=1, progress=False, size_rule=True)
     out["default_network"] = type(default.network).__name__
     if independent:
@@ -141,11 +142,18 @@ def run_dataset(name, cfg, progress, independent):
                                           "fit_seconds": sum(p["fit_seconds"] for p in parts),
                                           "steps": [p["steps"] for p in parts],
                                           "network": "+".join(p["network"] for p in parts)}
+        _report(name, "independent", out["variants"]["independent"])
     ref = out["variants"]["mlp"]["logq"]
     for res in out["variants"].values():
         res["nll"] = nll_summary(res["logq"])
         res["vs_mlp"] = paired(-res["logq"], -ref, groups)
     return out
+
+
+def _report(name, label, result) -> None:
+    """One line as soon as a variant is done (a long run's partial results stay readable)."""
+    print(f"[{name}] {label}: held-out NLL {-result['logq'].mean():.4f}, fit {result['fit_seconds']:.0f} s",
+          flush=True)
 
 
 def _pm(d, key="se_point"):
@@ -175,18 +183,18 @@ def main(argv=None):
     args = ap.parse_args(argv)
     cfg = QUICK if args.quick else FULL
     torch.set_num_threads(2)
+    out = args.out or Path(__file__).resolve().parent / "results" / \
+        f"product_defaults{'_quick' if args.quick else ''}.json"
     results = {}
     for name in args.only:
         results[name] = run_dataset(name, cfg, args.progress, args.independent)
         print(format_table({name: results[name]}), flush=True)
+        payload = {"mode": "quick" if args.quick else "full", "settings": cfg, "versions": versions(),
+                   "results": {k: {**res, "variants": {v: {kk: vv for kk, vv in r.items() if kk != "logq"}
+                                                        for v, r in res["variants"].items()}}
+                               for k, res in results.items()}}
+        write_json(out, json.loads(json.dumps(payload, default=float)))   # after every data set
     print(format_table(results))
-    out = args.out or Path(__file__).resolve().parent / "results" / \
-        f"product_defaults{'_quick' if args.quick else ''}.json"
-    payload = {"mode": "quick" if args.quick else "full", "settings": cfg, "versions": versions(),
-               "results": {name: {**res, "variants": {k: {kk: vv for kk, vv in v.items() if kk != "logq"}
-                                                       for k, v in res["variants"].items()}}
-                           for name, res in results.items()}}
-    write_json(out, json.loads(json.dumps(payload, default=float)))
     print(f"wrote {out}")
 
 

@@ -323,6 +323,11 @@ class Space(ABC):
         ``fit`` before training; the model keeps the space it returns."""
         return self
 
+    def holds_fit_of(self, fitted: "Space") -> bool:
+        """Whether a model fitted on the space ``fitted`` is a model on this one: equal spaces, or ``fitted`` is
+        what :meth:`fitted_to` made of this space (R^d with the data's location and scale filled in)."""
+        return self == fitted
+
     def plot_coordinates(self, x: torch.Tensor):
         """2-D picture coordinates ``(coords (n, 2) numpy, (xlabel, ylabel), (xlim, ylim))``, or None."""
         return None

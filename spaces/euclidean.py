@@ -91,6 +91,14 @@ class Euclidean(Manifold):
         scale = self.scale if self.scale is not None else [v if v > 0 else 1.0 for v in sd.tolist()]
         return Euclidean(self.d, self.t_max, self.process, loc=loc, scale=scale)
 
+    def holds_fit_of(self, fitted) -> bool:
+        """Equal, or equal once the location and scale left unset here are taken from ``fitted``."""
+        if not isinstance(fitted, Euclidean) or fitted.d != self.d:
+            return False
+        filled = Euclidean(self.d, self.t_max, self.process, loc=self.loc if self.loc is not None else fitted.loc,
+                           scale=self.scale if self.scale is not None else fitted.scale)
+        return filled == fitted
+
     def _m_s(self, x: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
         """(m, s) as tensors like x (zeros and ones while unset)."""
         m = torch.zeros(self.d, dtype=x.dtype, device=x.device) if self.loc is None else \

@@ -112,6 +112,10 @@ class Product(Space):
         factors = [f.fitted_to(xi) for f, xi in zip(self.factors, x)]
         return self if all(a is b for a, b in zip(factors, self.factors)) else Product(*factors)
 
+    def holds_fit_of(self, fitted) -> bool:
+        return (isinstance(fitted, Product) and len(fitted.factors) == len(self.factors)
+                and all(a.holds_fit_of(b) for a, b in zip(self.factors, fitted.factors)))
+
     def concat(self, batches):
         return tuple(torch.cat([b[i] for b in batches], 0) for i in range(len(self.factors)))
 

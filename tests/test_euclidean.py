@@ -120,3 +120,13 @@ def test_data_in_its_own_units_is_fitted_like_standardised_data():
     nll = -float(model.log_prob(torch.as_tensor(y))["log_prob"].mean())
     exact = -float(scipy.stats.norm(4.5, 0.3).logpdf(y[:, 0]).mean())
     assert abs(nll - exact) < 0.03, (nll, exact)
+
+
+def test_a_model_fitted_on_r_d_is_drawn_with_the_space_it_was_given():
+    """fit fills in loc and scale; the space the user built still holds the model (pictures accept it), a space
+    with other settings does not."""
+    fitted = Euclidean(2).fitted_to(torch.tensor([[1.0, 2.0], [3.0, 6.0]], dtype=torch.float64))
+    assert Euclidean(2).holds_fit_of(fitted) and fitted.holds_fit_of(fitted)
+    assert Euclidean(2, loc=[2.0, 4.0]).holds_fit_of(fitted)
+    assert not Euclidean(2, loc=0.0).holds_fit_of(fitted) and not Euclidean(2, t_max=5.0).holds_fit_of(fitted)
+    assert not Euclidean(3).holds_fit_of(fitted)

@@ -266,7 +266,7 @@ def test_size_rule_sets_only_the_steps_of_sequence_objectives():
 
 def test_a_product_takes_the_network_options_of_score_matching():
     """The product's one network is built like score matching's (MLP or residual, time skip on the residual
-    one); its features are bounded exactly when every manifold factor's are."""
+    one) and sized by the same rule; its features are bounded exactly when every manifold factor's are."""
     from heatwalk.core.networks.mlp import MLPDenoiser
     from heatwalk.core.networks.residual import ResidualDenoiser
     from heatwalk.spaces import SO3, Euclidean, Product, Sphere
@@ -281,5 +281,9 @@ def test_a_product_takes_the_network_options_of_score_matching():
     assert type(skip.network) is ResidualDenoiser and skip.network.skip_matrix is not None
     mlp = heatwalk.fit(space, x, steps=1, batch_size=8, progress=False, network={"residual": False, "hidden": 16})
     assert type(mlp.network) is MLPDenoiser
+    # by default the size rule's network, with the time skip since the R¹ factor's features are unbounded
+    default = heatwalk.fit(space, x, steps=1, batch_size=8, progress=False)
+    assert type(default.network) is ResidualDenoiser and default.network.config()["hidden"] == 128
+    assert default.network.skip_matrix is not None and default.record["size_rule"] == "applied"
     with pytest.raises(InputError, match="unknown network options for a product: \\['width'\\]"):
         heatwalk.fit(space, x, steps=1, batch_size=8, progress=False, network={"width": 16})

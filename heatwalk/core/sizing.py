@@ -12,9 +12,10 @@ seen when they were written.
 - ``size_rule(n, d, bounded)``: training steps and network from n. Steps grow as the square root of the data
   size, ``3000 · clip(sqrt(n / 1000), 1, 6)`` rounded to hundreds (3,000 steps up to 1,000 points, 6,000 at
   4,000, 12,200 at 16,500, 18,000 from 36,000), so larger data get more passes before the fit is stopped, but
-  a run never costs more than 6x the fixed default. The network is the residual one with the time in every
-  block (:class:`heatwalk.core.networks.residual.ResidualDenoiser`), 3 blocks of width 128 below 8,000 points
-  and 256 from there (a larger data set supports more parameters before it is over-fitted; each residual
+  a run never costs more than 6x the fixed default. The network (of score matching and of products; sequence
+  models keep their transformer) is the residual one with the time in every block
+  (:class:`heatwalk.core.networks.residual.ResidualDenoiser`), 3 blocks of width 128 below 8,000 points and
+  256 from there (a larger data set supports more parameters before it is over-fitted; each residual
   width costs about what an MLP of twice the width costs, 9 w² weights against 8 w²). Where the space's
   embedding is not bounded (``bounded`` is ``Space.bounded_embedding``, true on the torus, sphere and SO(3);
   false on R^d and the simplex's clr features) it also has its ``time_skip``, a linear map of the features

@@ -142,7 +142,7 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
     device : "cpu" (default), "cuda", "cuda:N" or "auto" (:func:`heatwalk.core.devices.resolve_device`).
     size_rule : choose ``steps`` and the network from the number of data points (default on;
         :func:`heatwalk.core.sizing.size_rule`: 3000 steps up to 1,000 points, more above; for score matching
-        the residual network of width 128, 256 from 8,000 points, with its time skip where the space's features
+        and products the residual network of width 128, 256 from 8,000 points, with its time skip where the space's features
         are unbounded); an explicit ``steps`` or ``network`` entry wins over the rule. With an iterable of batches (size unknown) the rule cannot apply
         and the fixed defaults are used; the record's "size_rule" entry says which happened.
     time_tilt : tilt a ∈ (-1, 1) of the training-time density with importance weights that keep the objective

@@ -70,6 +70,8 @@ class ProductObjective(Objective):
 
     #: whole factors are fixed by holding them known, as the network was trained to condition on them
     default_given_method = "trained"
+    #: the size rule chooses the network too (residual, width by data size; benchmarks/product_defaults.py)
+    sized_by_data = True
 
     @property
     def likelihood_method(self) -> str:  # what evaluate reports: the parts this product's log p is made of

@@ -156,7 +156,7 @@ def log_prob_on(model, grid: torch.Tensor) -> np.ndarray:
 
 
 def check_model_space(model, space) -> None:
-    if model is not None and model.space != space:
+    if model is not None and not space.holds_fit_of(model.space):
         raise InputError(f"model: fitted on {model.space!r}, but the picture is of {space!r}", field="model")
 
 
