@@ -80,6 +80,15 @@ class Euclidean(Manifold):
             out["scale"] = list(self.scale)
         return out
 
+    def __repr__(self) -> str:
+        """As the config, with loc and scale to 6 significant digits (the config keeps them exactly)."""
+        parts = [f"d={self.d}", f"t_max={self.t_max!r}", f"process={self.process!r}"]
+        for name in ("loc", "scale"):
+            values = getattr(self, name)
+            if values is not None:
+                parts.append(f"{name}=[{', '.join(f'{v:.6g}' for v in values)}]")
+        return f"Euclidean({', '.join(parts)})"
+
     def fitted_to(self, x) -> "Euclidean":
         """This space with ``loc`` and ``scale`` set from points x (n, d) where they are unset: the mean and the
         standard deviation (ddof 0) of each coordinate; a coordinate that does not vary gets scale 1."""
