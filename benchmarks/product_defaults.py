@@ -119,7 +119,17 @@ def fit_and_score(space, train, held, steps, network, progress):
             "network_config": model.network.config()}
 
 
-def run_dataset(name, cfg, progress, independent):
+def _summarise(out, groups) -> None:
+    """NLL summaries and paired differences against ``mlp`` (the first variant) of the variants done so far."""
+    ref = out["variants"]["mlp"]["logq"]
+    for res in out["variants"].values():
+        res["nll"] = nll_summary(res["logq"])
+        res["vs_mlp"] = paired(-res["logq"], -ref, groups)
+
+
+def run_dataset(name, cfg, progress, independent, save=lambda out: None):
+    """One data set's variants; ``save(partial result)`` runs after every variant, so a run stopped part way
+    keeps what it measured (paired differences included)."""
     space, train, held, groups, info = load(name)
     train, _ = _subsample(space, train, cfg["train_max"], SEED + 1)
     held, groups = _subsample(space, held, cfg["heldout_max"], SEED + 2, groups)
@@ -133,6 +143,8 @@ def run_dataset(name, cfg, progress, independent):
         out["variants"][label] = {"options": network, **fit_and_score(space, train, held, cfg["steps"], network,
                                                                       progress)}
         _report(name, label, out["variants"][label])
+        _summarise(out, groups)
+        save(out)
     default = heatwalk.fit(space, space.take(train, slice(0, 64)), steps=1, progress=False, size_rule=True)
     out["default_network"] = type(default.network).__name__
     if independent:
@@ -143,10 +155,7 @@ def run_dataset(name, cfg, progress, independent):
                                           "steps": [p["steps"] for p in parts],
                                           "network": "+".join(p["network"] for p in parts)}
         _report(name, "independent", out["variants"]["independent"])
-    ref = out["variants"]["mlp"]["logq"]
-    for res in out["variants"].values():
-        res["nll"] = nll_summary(res["logq"])
-        res["vs_mlp"] = paired(-res["logq"], -ref, groups)
+    _summarise(out, groups)
     return out
 
 
@@ -186,14 +195,20 @@ def main(argv=None):
     out = args.out or Path(__file__).resolve().parent / "results" / \
         f"product_defaults{'_quick' if args.quick else ''}.json"
     results = {}
-    for name in args.only:
-        results[name] = run_dataset(name, cfg, args.progress, args.independent)
-        print(format_table({name: results[name]}), flush=True)
+
+    def save(partial=None, name=None):
+        done = {**results, **({name: partial} if partial is not None else {})}
         payload = {"mode": "quick" if args.quick else "full", "settings": cfg, "versions": versions(),
                    "results": {k: {**res, "variants": {v: {kk: vv for kk, vv in r.items() if kk != "logq"}
                                                         for v, r in res["variants"].items()}}
-                               for k, res in results.items()}}
-        write_json(out, json.loads(json.dumps(payload, default=float)))   # after every data set
+                               for k, res in done.items()}}
+        write_json(out, json.loads(json.dumps(payload, default=float)))
+
+    for name in args.only:
+        results[name] = run_dataset(name, cfg, args.progress, args.independent,
+                                    save=lambda partial, name=name: save(partial, name))
+        print(format_table({name: results[name]}), flush=True)
+        save()
     print(format_table(results))
     print(f"wrote {out}")
 
