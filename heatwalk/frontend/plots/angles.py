@@ -27,13 +27,11 @@ import math
 import numpy as np
 import torch
 
-from heatwalk.checks import check_int, check_number
 from heatwalk.frontend.plots.figures import (
     COLOR_SCALE_OPTION, DATA_COLOUR, DENSITY_OPTION, MAX_POINTS_OPTION, OVERLAY_COLOUR, SAMPLES_COLOUR,
-    check_model_space, check_names, choose_density, density_cmap,
-    density_norm, log_prob_on, points, render, spread,
+    density_cmap, log_prob_on, render, spread,
 )
-from heatwalk.frontend.plots.pairs import density_caption, draw_pairs_layout, pairs_size
+from heatwalk.frontend.plots.pairs import checked_inputs, density_caption, draw_pairs_layout, pairs_size
 from heatwalk.spaces.base import Option
 
 _RADIAN_TICKS = ([-math.pi, -math.pi / 2, 0.0, math.pi / 2, math.pi], ["−π", "−π/2", "0", "π/2", "π"])
@@ -106,17 +104,11 @@ def draw_angles(fig, space, data, samples, *, model=None, density=None, columns=
                 grid: int = 64, bins: int = 72, smoothing: float = 1.5, color_scale: str = "linear",
                 max_points: int = 3000) -> None:
     """Draw the density of the angles with the data over it (see the module docstring)."""
-    check_model_space(model, space)
-    data, samples = points(space, data, "data"), points(space, samples, "samples")
     n = space.n
-    names = check_names(columns, n, space.column_names(), "angles")
-    grid, bins = check_int("grid", grid, minimum=4), check_int("bins", bins, minimum=4)
-    smoothing = check_number("smoothing", smoothing, minimum=0)
-    source = choose_density(density, data=data, samples=samples, model=model, model_ok=n <= 2,
-                            why=f"a pair of {n} angles has a marginal density that a grid of the joint law "
-                                "does not give")
+    data, samples, names, grid, bins, smoothing, source = checked_inputs(
+        space, n, "angles", data, samples, model=model, density=density, columns=columns, grid=grid, bins=bins,
+        smoothing=smoothing, color_scale=color_scale)
     units = _Units(degrees)
-    density_norm(color_scale, 1.0)  # checks the choice before any work
     pts = {"samples": samples, "data": data, "model": None}[source]
 
     def density_of(cols):

@@ -28,14 +28,12 @@ from __future__ import annotations
 import numpy as np
 import torch
 
-from heatwalk.checks import check_int, check_number
 from heatwalk.errors import InputError
 from heatwalk.frontend.plots.figures import (
     COLOR_SCALE_OPTION, DATA_COLOUR, DENSITY_OPTION, MAX_POINTS_OPTION, OVERLAY_COLOUR, SAMPLES_COLOUR,
-    check_model_space, check_names, choose_density, density_cmap, density_norm, log_prob_on, points, render,
-    spread,
+    density_cmap, log_prob_on, render, spread,
 )
-from heatwalk.frontend.plots.pairs import density_caption, draw_pairs_layout, pairs_size
+from heatwalk.frontend.plots.pairs import checked_inputs, density_caption, draw_pairs_layout, pairs_size
 from heatwalk.spaces.base import Option
 
 #: the options the command line offers (``columns`` follows the data file's columns)
@@ -97,16 +95,10 @@ def draw_coordinates(fig, space, data, samples, *, model=None, density=None, col
                      bins: int = 72, smoothing: float = 1.5, color_scale: str = "linear",
                      max_points: int = 3000) -> None:
     """Draw the density of the coordinates with the data over it (see the module docstring)."""
-    check_model_space(model, space)
-    data, samples = points(space, data, "data"), points(space, samples, "samples")
     d = space.d
-    names = check_names(columns, d, space.column_names(), "coordinates")
-    grid, bins = check_int("grid", grid, minimum=4), check_int("bins", bins, minimum=4)
-    smoothing = check_number("smoothing", smoothing, minimum=0)
-    source = choose_density(density, data=data, samples=samples, model=model, model_ok=d <= 2,
-                            why=f"a pair of {d} coordinates has a marginal density that a grid of the joint law "
-                                "does not give")
-    density_norm(color_scale, 1.0)  # checks the choice before any work
+    data, samples, names, grid, bins, smoothing, source = checked_inputs(
+        space, d, "coordinates", data, samples, model=model, density=density, columns=columns, grid=grid, bins=bins,
+        smoothing=smoothing, color_scale=color_scale)
     if data is None and samples is None:
         raise InputError("the coordinates picture takes its window from data or samples: give one of them "
                          "(with a model alone, draw samples from it)", field="data")

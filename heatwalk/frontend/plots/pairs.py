@@ -16,7 +16,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-from heatwalk.frontend.plots.figures import density_norm
+from heatwalk.checks import check_int, check_number
+from heatwalk.frontend.plots.figures import check_model_space, check_names, choose_density, density_norm, points
 
 
 def pairs_size(k: int) -> tuple[int, int]:
@@ -34,6 +35,22 @@ def density_caption(source: str, m: int | None, grid: int, bins: int, smoothing:
         return f"model density exp(log_prob) on a {grid}-cell grid per {per}"
     return (f"{source} density: histogram of {m} {'samples' if source == 'samples' else 'points'}, "
             f"{bins} bins per {per}, smoothed σ = {smoothing:g} bin")
+
+
+def checked_inputs(space, k: int, what: str, data, samples, *, model, density, columns, grid, bins, smoothing,
+                   color_scale):
+    """The checks both pictures make before any work: (data, samples, names, grid, bins, smoothing, source), with
+    ``source`` the density drawn (``choose_density``; the model's only for k <= 2) and the colour scale checked."""
+    check_model_space(model, space)
+    data, samples = points(space, data, "data"), points(space, samples, "samples")
+    names = check_names(columns, k, space.column_names(), what)
+    grid, bins = check_int("grid", grid, minimum=4), check_int("bins", bins, minimum=4)
+    smoothing = check_number("smoothing", smoothing, minimum=0)
+    source = choose_density(density, data=data, samples=samples, model=model, model_ok=k <= 2,
+                            why=f"a pair of {k} {what} has a marginal density that a grid of the joint law "
+                                "does not give")
+    density_norm(color_scale, 1.0)  # checks the choice before any work
+    return data, samples, names, grid, bins, smoothing, source
 
 
 def draw_pairs_layout(fig, k: int, names, *, one: Callable, pair: Callable, pair_density: Callable, how: str,
