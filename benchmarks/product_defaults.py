@@ -189,9 +189,10 @@ def main(argv=None):
     ap.add_argument("--independent", action="store_true", help="also fit each factor alone")
     ap.add_argument("--out", type=Path, default=None)
     ap.add_argument("--progress", action="store_true")
+    ap.add_argument("--threads", type=int, default=2, help="torch threads (1 leaves a core of 2 free)")
     args = ap.parse_args(argv)
     cfg = QUICK if args.quick else FULL
-    torch.set_num_threads(2)
+    torch.set_num_threads(args.threads)
     out = args.out or Path(__file__).resolve().parent / "results" / \
         f"product_defaults{'_quick' if args.quick else ''}.json"
     results = {}

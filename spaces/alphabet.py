@@ -65,3 +65,46 @@ def encode_strings(seqs: list[str], alphabet: list[str], length: int | None = No
             raise InputError(f"{where}: record {i + 1}, column {j + 1}: unknown symbol {s[j]!r} "
                              f"(alphabet: {''.join(alphabet)!r})", row=i, field=str(j)) from None
     return codes
+
+
+#: characters a state name may not hold: a table cell of it must read back as itself (delimiters, quotes,
+#: line breaks)
+STATE_NAME_FORBIDDEN = frozenset(',;\t"\'\n\r|')
+
+
+def check_state_names(names, K: int) -> tuple[str, ...] | None:
+    """``names`` as a tuple of K distinct state names for table cells (None stays None); raises InputError.
+
+    A state name is any non-empty text without surrounding spaces and without the characters of
+    :data:`STATE_NAME_FORBIDDEN`, e.g. a residue name ``GLY`` or a class ``wet``; state k is ``names[k]``.
+    """
+    if names is None:
+        return None
+    if isinstance(names, str) or not hasattr(names, "__iter__"):
+        raise InputError(f"state_names: expected a list of {K} names, got {names!r}", field="state_names")
+    names = tuple(names)
+    if len(names) != K:
+        raise InputError(f"state_names: has {len(names)} names, expected K = {K}", field="state_names")
+    seen = set()
+    for i, s in enumerate(names):
+        if not isinstance(s, str) or not s or s.strip() != s:
+            raise InputError(f"state_names: name {i} is {s!r}, expected non-empty text without surrounding spaces",
+                             field="state_names")
+        bad = sorted(set(s) & STATE_NAME_FORBIDDEN)
+        if bad:
+            raise InputError(f"state_names: name {i} {s!r} holds {bad[0]!r}, which a table cell cannot keep",
+                             field="state_names")
+        if s in seen:
+            raise InputError(f"state_names: name {s!r} appears twice", field="state_names")
+        seen.add(s)
+    return names
+
+
+def sorted_state_names(values) -> list[str]:
+    """The distinct names among ``values`` (text), sorted: numerically when every one is an integer written
+    in decimal (so "2" comes before "10"), else alphabetically."""
+    distinct = set(values)
+    try:
+        return sorted(distinct, key=int) if all(v.lstrip("-").isdigit() for v in distinct) else sorted(distinct)
+    except ValueError:
+        return sorted(distinct)

@@ -229,6 +229,9 @@ class Space(ABC):
     #: gives the residual network, measured to help there and to fail on R^d (heatwalk.core.sizing). False
     #: where the features grow without bound (R^d, clr of compositions).
     bounded_embedding: ClassVar[bool] = False
+    #: a table column of it can hold named states (text cells): a product read from a table takes it as a factor,
+    #: built by ``from_named_columns(columns)`` from the cells of its columns (:class:`heatwalk.spaces.Categories`)
+    table_states: ClassVar[bool] = False
     #: intrinsic dimension (0 for a finite set)
     dim: int
     #: shape of one point as stored
@@ -264,6 +267,18 @@ class Space(ABC):
     def from_table(cls, n_columns: int, **options) -> "Space":
         """The space whose points fill a table of ``n_columns`` columns read with ``options``."""
         raise InputError(f"space {cls.kind!r} is not read from tables of numbers", field="space")
+
+    @classmethod
+    def table_text_columns(cls, **options) -> tuple[int, ...]:
+        """The data columns (0-based) of a table read with ``options`` that hold named states (text): read as
+        text and given to :meth:`from_table` as ``text={column: cells}``. None by default; a product names those
+        of its categories factors."""
+        return ()
+
+    def column_states(self, **options) -> dict[int, tuple[str, ...]]:
+        """{table column (0-based): the state names its cells hold} for the columns of :meth:`to_rows` that hold
+        named states; their rows carry the state's index (a code) in place of the name. None by default."""
+        return {}
 
     @classmethod
     def check_file_options(cls, options: dict) -> dict:

@@ -37,7 +37,7 @@ import torch
 from heatwalk.errors import InputError
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
-from heatwalk.spaces.alphabet import check_alphabet, encode_strings
+from heatwalk.spaces.alphabet import check_alphabet, check_state_names, encode_strings, sorted_state_names
 from heatwalk.spaces.base import GivenPart, Option, generator_device, real_tensor
 from heatwalk.spaces.finite import FiniteStateSpace
 
@@ -63,6 +63,10 @@ class Categories(FiniteStateSpace):
     alphabet : optional K distinct one-character symbols naming the states (saved with the model so
         samples can be written as text); state k is ``alphabet[k]``.
     variable_length : sequences of lengths 1 … L (see below).
+    state_names : optional K distinct names of the states as a table writes them (any text without
+        surrounding spaces, delimiters or quotes, e.g. residue names ``ALA`` … ``VAL``); saved with the
+        model. A product read from a table builds its categories factors with them
+        (:meth:`from_named_columns`), and its table cells then hold names, not codes. Fixed lengths only.
 
     Variable lengths
     ----------------
@@ -96,8 +100,12 @@ class Categories(FiniteStateSpace):
                choices=("absorbing", "uniform")),
     )
 
+    #: a table column of this space can hold the states by name (:meth:`from_named_columns`): a product read
+    #: from a table takes categories factors
+    table_states = True
+
     def __init__(self, K: int, L: int, process: str | None = None, rates=None, alphabet=None,
-                 variable_length: bool = False):
+                 variable_length: bool = False, state_names=None):
         check_int("Categories: K (number of states)", K, minimum=2, maximum=MAX_STATES)
         check_positive_int("Categories: L (sequence length)", L)
         if not isinstance(variable_length, bool):
@@ -106,6 +114,10 @@ class Categories(FiniteStateSpace):
         self.n_symbols, self.variable_length = K, variable_length
         self.end_state = K if variable_length else None
         alphabet = check_alphabet(alphabet, K)
+        if state_names is not None and variable_length:
+            raise InputError("Categories: state_names name the states of table columns, which have a fixed length; "
+                             "pass variable_length=False", field="state_names")
+        self.state_names = check_state_names(state_names, K)
         K = K + 1 if variable_length else K
         if process is None:
             # absorbing (masking) by default: on every source we measured its ELBO is far tighter than the
@@ -145,12 +157,33 @@ class Categories(FiniteStateSpace):
         return cls(len(alphabet), length, alphabet="".join(alphabet), variable_length=variable_length,
                    **build_options)
 
+    @classmethod
+    def from_named_columns(cls, columns, **build_options) -> "Categories":
+        """The space of the named states in ``columns`` (L sequences of text cells, one per table column, each
+        of one length n): ``state_names`` the distinct names over all of them, sorted
+        (:func:`~heatwalk.spaces.alphabet.sorted_state_names`), K their number (≥ 2), L the number of columns."""
+        columns = [[str(v) for v in c] for c in columns]
+        if not columns:
+            raise InputError("categories: no columns of named states", field="factors")
+        names = sorted_state_names(v for c in columns for v in c)
+        if len(names) < 2:
+            raise InputError(f"categories: the columns hold {len(names)} distinct state name(s) "
+                             f"{', '.join(map(repr, names))}; a categorical factor needs at least 2", field="factors")
+        return cls(len(names), len(columns), state_names=names, **build_options)
+
     def config(self) -> dict:
         out = {"kind": "categories", "K": self.n_symbols, "L": self.L, "process": self.process,
                "rates": self._rates, "alphabet": None if self.alphabet is None else "".join(self.alphabet)}
         if self.variable_length:
             out["variable_length"] = True
+        if self.state_names is not None:
+            out["state_names"] = list(self.state_names)
         return out
+
+    def column_states(self, **options) -> dict[int, tuple[str, ...]]:
+        """Every column holds a position's state by name when the space has ``state_names`` (else codes)."""
+        self.check_file_options(options)
+        return {} if self.state_names is None else {j: self.state_names for j in range(self.L)}
 
     def lengths(self, x: torch.Tensor) -> torch.Tensor:
         """Sequence lengths (n,): the position of the first end state, or L."""
@@ -241,7 +274,8 @@ class Categories(FiniteStateSpace):
 
     # ----- fixed positions -------------------------------------------------------------------------
     def given_part(self, given: dict, n: int):
-        """``given={position: state}``: a state code in [0, K) or a symbol of the alphabet, one or one per sample."""
+        """``given={position: state}``: a state code in [0, K), a symbol of the alphabet or a name of
+        ``state_names``, one or one per sample."""
         if not isinstance(given, dict) or not given:
             raise InputError(f"given: expected a non-empty dict {{position: state(s)}}, got {given!r}", field="given")
         # cpu: fixed values are parsed on the CPU; Conditioning.to moves them
@@ -266,7 +300,12 @@ class Categories(FiniteStateSpace):
             else list(value)
         codes = []
         for v in items:
-            if isinstance(v, str):
+            if isinstance(v, str) and self.state_names is not None:
+                if v not in self.state_names:
+                    raise InputError(f"given: position {pos}: {v!r} is not one of the states "
+                                     f"{', '.join(self.state_names)}", field="given")
+                codes.append(self.state_names.index(v))
+            elif isinstance(v, str):
                 if self.alphabet is None or v not in self.alphabet:
                     raise InputError(f"given: position {pos}: symbol {v!r} is not in the alphabet "
                                      f"{''.join(self.alphabet or [])!r}", field="given")

@@ -38,9 +38,18 @@ spaces' ``file_options``) goes to every factor that declares it — ``degrees=Tr
 reads the torus's angles and SO(3) rotation vectors in degrees — unless the
 factor's own setting in ``factors`` says otherwise; one that no factor takes is
 refused. ``factors`` is kept with the model's reading options, so samples are
-written in the units they were read in. Finite factors have no table form (their
-states are not numbers); a product read from a table has manifold and R^d
-factors only.
+written in the units they were read in.
+
+A ``categories:N`` factor is N columns of named states (text cells: a residue
+name, a class), one sequence position per column: its states are the distinct
+names in those columns (sorted; numerically when all are integers), saved with
+the model as the factor's ``state_names``, so samples are written with the same
+names and a value to fix is given by name. It takes no reading options. Its
+columns are declared by :meth:`Product.table_text_columns` and their cells reach
+:meth:`Product.from_table` as ``text``; in the rows of :meth:`Product.from_rows`
+and :meth:`Product.to_rows` they hold the state codes (indices into
+``state_names``), which the table readers and writers turn from and into names
+(:meth:`Product.column_states`).
 """
 
 from __future__ import annotations
@@ -159,10 +168,24 @@ class Product(Space):
 
     # ----- tables ---------------------------------------------------------------------------------
     @classmethod
-    def from_table(cls, n_columns: int, *, factors: str | None = None, **options) -> "Product":
+    def table_text_columns(cls, *, factors: str | None = None, **options) -> tuple[int, ...]:
+        """The columns (0-based, in factor order) of the named-state factors of ``factors`` (module docstring)."""
+        from heatwalk.spaces import SPACE_KINDS
+
+        out, j = [], 0
+        for kind, n, _ in parse_factor_spec(factors):
+            if SPACE_KINDS[kind].table_states:
+                out += range(j, j + n)
+            j += n
+        return tuple(out)
+
+    @classmethod
+    def from_table(cls, n_columns: int, *, factors: str | None = None, text: dict | None = None,
+                   **options) -> "Product":
         """The product named by ``factors`` (``KIND:N[:SETTING…],…``, module docstring) whose columns fill
         ``n_columns``; each factor is built by its class's ``from_table`` from its N columns and its reading
-        options."""
+        options, a named-state factor by ``from_named_columns`` from its columns' cells in ``text``
+        ({column: cells}, the columns of :meth:`table_text_columns`)."""
         from heatwalk.spaces import SPACE_KINDS
 
         cls.check_file_options(options)
@@ -171,11 +194,24 @@ class Product(Space):
         if total != n_columns:
             raise InputError(f"factors {factors!r} take {total} columns, but the table has {n_columns} data "
                              f"columns (choose them, in factor order, with --columns)", field="factors")
+        text = text or {}
         built, j = [], 0
         for i, (kind, n, own) in enumerate(spec):
             factor_cls = SPACE_KINDS[kind]
             opts = _options_for(factor_cls, options) | own
             where = f"factors: factor {i} ({kind}:{n}, table columns {j + 1}–{j + n})"
+            if factor_cls.table_states:
+                missing = [c + 1 for c in range(j, j + n) if c not in text]
+                if missing:
+                    raise InputError(f"{where}: the cells of columns {missing} were not read as text (read the "
+                                     f"table with the columns of Product.table_text_columns as text)",
+                                     field="factors")
+                try:
+                    built.append(factor_cls.from_named_columns([text[c] for c in range(j, j + n)]))
+                except InputError as e:
+                    raise InputError(f"{where}: {e.message}", field="factors") from None
+                j += n
+                continue
             try:
                 f = factor_cls.from_table(n, **opts)
                 reads = f.n_columns_for(**opts)
@@ -221,6 +257,12 @@ class Product(Space):
         """``f{i}_{name}`` for each factor i's column names (read with the options it takes)."""
         return [f"f{i}_{name}" for i, (f, o) in enumerate(zip(self.factors, self.factor_options(options)))
                 for name in f.column_names(**o)]
+
+    def column_states(self, **options) -> dict[int, tuple[str, ...]]:
+        """The named-state columns of every factor (:meth:`Space.column_states`), at their places in the row."""
+        return {span.start + c: names
+                for f, o, span in zip(self.factors, self.factor_options(options), self.factor_columns(**options))
+                for c, names in f.column_states(**o).items()}
 
     def factor_columns(self, **options) -> list[range]:
         """The table columns of each factor (0-based, in row order) when read with ``options``."""
@@ -360,8 +402,10 @@ def parse_factor_spec(text) -> list[tuple[str, int, dict]]:
     the reading options its space declares (``NAME=VALUE``, or ``NAME`` for a switch)."""
     from heatwalk.spaces import SPACE_KINDS
 
-    table_kinds = sorted(k for k, c in SPACE_KINDS.items() if c.file_kind == "table" and not issubclass(c, Product))
-    example = "e.g. torus:2,euclidean:3 or torus:2:degrees,so3:4:rotation_format=quaternion:quaternion_order=wxyz"
+    table_kinds = sorted(k for k, c in SPACE_KINDS.items()
+                         if (c.file_kind == "table" or c.table_states) and not issubclass(c, Product))
+    example = ("e.g. torus:2,euclidean:3, torus:2:degrees,categories:1 or "
+               "torus:2:degrees,so3:4:rotation_format=quaternion:quaternion_order=wxyz")
     if not isinstance(text, str) or not text.strip():
         raise InputError(f"a product read from a table needs factors=KIND:N,KIND:N,… (its factors in column order, "
                          f"{example}; kinds: {', '.join(table_kinds)})", field="factors")
@@ -375,13 +419,17 @@ def parse_factor_spec(text) -> list[tuple[str, int, dict]]:
             raise InputError(f"factors {text!r}: unknown space {kind!r} (kinds: {', '.join(table_kinds)})",
                              field="factors")
         if kind not in table_kinds:
-            raise InputError(f"factors {text!r}: a {kind} factor is not read from a table of numbers (kinds: "
-                             f"{', '.join(table_kinds)}); for a class per row, fit a conditional model with "
-                             f"--labels COLUMN", field="factors")
+            raise InputError(f"factors {text!r}: a {kind} factor is not read from a table (kinds: "
+                             f"{', '.join(table_kinds)})", field="factors")
         if not count.isdigit() or int(count) < 1:
             raise InputError(f"factors {text!r}: item {k + 1} needs a column count N ≥ 1, got {count!r}",
                              field="factors")
-        out.append((kind, int(count), _settings(SPACE_KINDS[kind], settings, f"factors {text!r}: item {k + 1}")))
+        where = f"factors {text!r}: item {k + 1}"
+        if SPACE_KINDS[kind].table_states and any(settings):
+            raise InputError(f"{where}: a {kind} factor takes no reading options (its columns hold state names; "
+                             f"got {':'.join(settings)!r})", field="factors")
+        out.append((kind, int(count), {} if SPACE_KINDS[kind].table_states else
+                    _settings(SPACE_KINDS[kind], settings, where)))
     if len(out) < 2:
         raise InputError(f"factors {text!r}: a product needs at least two factors ({example}); for one space "
                          f"use --space {out[0][0]}", field="factors")

@@ -179,16 +179,32 @@ def _given_from_rows(model, names, rows, options, where) -> tuple[dict, dict]:
         index.append(columns.index(name))
     if "sequences" in space.capabilities:
         return {i: [row[k] for row in rows] if len(rows) > 1 else rows[0][k] for k, i in enumerate(index)}, {}
-    try:
-        values = torch.tensor([[float(v) for v in row] for row in rows], dtype=torch.float64)
-    except ValueError as e:
-        raise InputError(f"{where}: a fixed value is not a number ({e})", field="fix") from None
+    states = space.column_states(**options)
+    values = torch.tensor([[_fixed_number(v, columns[i], states.get(i), where) for v, i in zip(row, index)]
+                           for row in rows], dtype=torch.float64)
     try:
         given = space.given_from_columns(index, values, names=columns, **options)
     except InputError as e:
         raise InputError(f"{where}: {e.message}", row=e.row, field="fix") from None
-    as_given = {i: values[0, k].item() if len(rows) == 1 else values[:, k].numpy() for k, i in enumerate(index)}
+    as_given = {i: values[0, k].item() if len(rows) == 1 else values[:, k].numpy() for k, i in enumerate(index)
+                if i not in states}
     return given, as_given
+
+
+def _fixed_number(value, column: str, states, where: str) -> float:
+    """A fixed value as the number its column holds: a number, or for a column of named states (``states``)
+    the state's code."""
+    if states is not None:
+        name = value.decode() if isinstance(value, bytes) else str(value).strip()
+        if name not in states:
+            shown = ", ".join(states[:12]) + (", …" if len(states) > 12 else "")
+            raise InputError(f"{where}: {column}={name!r} is not one of its {len(states)} states {shown}",
+                             field="fix")
+        return float(states.index(name))
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{where}: {column}={value!r} is not a number", field="fix") from None
 
 
 def _parse_fix(model, fixes, options) -> tuple[dict, dict]:
@@ -204,15 +220,22 @@ def _parse_fix(model, fixes, options) -> tuple[dict, dict]:
 
 def _parse_given_file(model, path, options, n: int) -> tuple[dict, dict]:
     from heatwalk.io.table_base import position_names
-    from heatwalk.io.tables import read_table
+    from heatwalk.io.tables import read_table, table_column_names
 
-    table = read_table(path)
-    if table.names == position_names(len(table.names)):
+    names = table_column_names(path)
+    if names == position_names(len(names)):
         raise InputError(f"{path}: a --given table needs a header naming its columns", field="given")
+    columns = _column_names(model, options)
+    named = {columns[j] for j in model.space.column_states(**options)}
+    table = read_table(path, text_columns=[k for k, name in enumerate(names) if name in named])
     if table.values.shape[0] not in (1, n):
         raise InputError(f"{path}: {table.values.shape[0]} rows; give one row (the same values for every sample) "
                          f"or one row per sample (--n {n})", field="given")
-    return _given_from_rows(model, table.names, table.values.tolist(), options, str(path))
+    rows = table.values.tolist()
+    for k, cells in (table.text or {}).items():
+        for row, cell in zip(rows, cells):
+            row[k] = cell
+    return _given_from_rows(model, table.names, rows, options, str(path))
 
 
 def cmd_sample(args) -> int:

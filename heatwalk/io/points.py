@@ -100,11 +100,13 @@ class TableFiles:
         file_opts, build_opts = split_options(space_cls, options)
         if mapped_array_file(path):
             return self._read_mapped(path, space_cls, file_opts, build_opts, columns, labels, delimiter)
-        table = read_table(path, columns=columns, labels=labels, delimiter=delimiter)
+        text_columns = space_cls.table_text_columns(**file_opts)
+        table = read_table(path, columns=columns, labels=labels, delimiter=delimiter, text_columns=text_columns)
         if table.values.shape[1] == 0:
             raise InputError(f"{path}: no data columns are left (all were ignored or used as labels)",
                              field="columns")
-        space = space_cls.from_table(table.values.shape[1], **file_opts, **build_opts)
+        text = {"text": table.text} if text_columns else {}
+        space = space_cls.from_table(table.values.shape[1], **file_opts, **build_opts, **text)
         facts = {"columns": list(table.names), "ignored": list(table.ignored), "labels": table.labels,
                  "label_column": table.label_name}
         return space, points_from_table(path, space, table, **file_opts), facts
@@ -136,16 +138,17 @@ class TableFiles:
         return space, points, facts
 
     def read(self, path, space, options: dict, *, columns=None, delimiter=None):
+        text_columns = tuple(space.column_states(**options))
         if columns is not None:
             try:
-                table = read_table(path, columns=list(columns), delimiter=delimiter)
+                table = read_table(path, columns=list(columns), delimiter=delimiter, text_columns=text_columns)
             except InputError:
-                table = read_table(path, delimiter=delimiter)
+                table = read_table(path, delimiter=delimiter, text_columns=text_columns)
                 if table.names != position_names(len(table.names)) or len(table.names) != len(columns):
                     raise InputError(f"{path}: the model was fitted on columns {', '.join(columns)}; this file "
                                      f"has {', '.join(table.names)}", field="columns") from None
         else:
-            table = read_table(path, delimiter=delimiter)
+            table = read_table(path, delimiter=delimiter, text_columns=text_columns)
         return points_from_table(path, space, table, **options)
 
     def write(self, path, space, x, options: dict, overwrite: bool, names=None, as_given=None) -> Path:

@@ -40,6 +40,9 @@ class Table:
     label_name : that column's name
     path : the file read
     unit : "line" (text files) or "row" (Parquet, NPZ)
+    text : {data column (0-based): its cells as text (n,)} for the data columns read as text (named
+        states, ``read_table(text_columns=...)``); ``values`` holds 0 there until the space's state
+        codes replace it (:func:`heatwalk.io.tables.points_from_table`). None when no column was.
     """
 
     values: np.ndarray
@@ -50,6 +53,7 @@ class Table:
     label_name: str | None = None
     path: Path | None = None
     unit: str = "line"
+    text: dict | None = None
 
     @property
     def shape(self) -> tuple[int, int]:

@@ -20,6 +20,7 @@ read back gives the same float64 values, bit for bit.
 
 from __future__ import annotations
 
+import dataclasses
 import itertools
 from pathlib import Path
 
@@ -35,7 +36,7 @@ from heatwalk.io.source import PARQUET_MAGIC, ZIP_MAGIC, check_readable, magic
 from heatwalk.io.table_base import Table
 from heatwalk.spaces.base import Space
 
-__all__ = ["Table", "read_table", "read_column", "write_table", "read_points", "points_from_table",
+__all__ = ["Table", "read_table", "read_column", "table_column_names", "write_table", "read_points", "points_from_table",
            "write_points", "check_output_format"]
 
 
@@ -48,7 +49,7 @@ def _reader_of(path: Path):
     return read_delimited
 
 
-def read_table(path, *, columns=None, labels=None, delimiter: str | None = None) -> Table:
+def read_table(path, *, columns=None, labels=None, delimiter: str | None = None, text_columns=()) -> Table:
     """Read a table of numbers from a CSV / TSV, Parquet or NPZ file.
 
     Parameters
@@ -58,10 +59,12 @@ def read_table(path, *, columns=None, labels=None, delimiter: str | None = None)
         in the order wanted; the other columns are ignored and listed in ``Table.ignored``
     labels : name of a column read as it is stored (text files: the stripped cell text), one per row
     delimiter : text files only: the one-character cell separator; None detects it
+    text_columns : data columns (0-based among the data columns) read as text, e.g. named states
+        (``Table.text``; each is read in a pass of its own over the file)
 
     Returns
     -------
-    Table with ``values`` (n, m) float64, all finite.
+    Table with ``values`` (n, m) float64, all finite (0 in the text columns).
 
     Raises
     ------
@@ -74,7 +77,49 @@ def read_table(path, *, columns=None, labels=None, delimiter: str | None = None)
         raise InputError(f"{path}: delimiter applies to text tables, but this is a "
                          f"{'Parquet' if reader is read_parquet else 'NPZ'} file", field="delimiter")
     kwargs = {"delimiter": delimiter} if reader is read_delimited else {}
-    return reader(path, columns=columns, labels=labels, **kwargs)
+    if not text_columns:
+        return reader(path, columns=columns, labels=labels, **kwargs)
+    return _with_text_columns(path, reader, kwargs, columns, labels, sorted(set(text_columns)))
+
+
+def _with_text_columns(path: Path, reader, kwargs: dict, columns, labels, text_columns: list[int]) -> Table:
+    """:func:`read_table` with the data columns ``text_columns`` read as text: the numbers in one pass, each text
+    column in a pass of its own (as a label column), put together in the data columns' order."""
+    names = list(columns) if columns is not None else _data_column_names(path, reader, kwargs, labels)
+    outside = [p for p in text_columns if not 0 <= p < len(names)]
+    if outside:
+        raise InputError(f"{path}: data column {outside[0] + 1} should hold named states, but the table has "
+                         f"{len(names)} data columns ({', '.join(map(str, names))})", field="columns")
+    if labels is not None and labels in [names[p] for p in text_columns]:
+        raise InputError(f"{path}: column {labels!r} is both the label column and a data column of named states",
+                         field=str(labels))
+    numeric = [n for j, n in enumerate(names) if j not in text_columns]
+    table = reader(path, columns=numeric, labels=labels, need_data=False, **kwargs)
+    text = {}
+    for p in text_columns:
+        cells = reader(path, columns=[], labels=names[p], need_data=False, **kwargs).labels
+        text[p] = np.asarray([v.decode() if isinstance(v, bytes) else str(v) for v in cells.tolist()], dtype=object)
+        if len(text[p]) != len(table.lines):
+            raise InputError(f"{path}: column {names[p]!r} has {len(text[p])} rows, the numeric columns "
+                             f"{len(table.lines)}", field=str(names[p]))
+    values = np.zeros((len(table.lines), len(names)), dtype=np.float64)
+    values[:, [j for j in range(len(names)) if j not in text_columns]] = table.values
+    named = {str(names[p]) for p in text_columns}
+    return dataclasses.replace(table, values=values, names=[str(n) for n in names], text=text,
+                               ignored=[n for n in table.ignored if str(n) not in named])
+
+
+def _data_column_names(path: Path, reader, kwargs: dict, labels) -> list[str]:
+    """The names of the data columns of ``columns=None``: every column but the label column, in file order."""
+    return list(reader(path, columns=[], labels=labels, need_data=False, **kwargs).ignored)
+
+
+def table_column_names(path, *, delimiter: str | None = None) -> list[str]:
+    """Every column name of a table file, in file order (``column_1`` … for a text file without a header)."""
+    path = check_readable(path)
+    reader = _reader_of(path)
+    kwargs = {"delimiter": delimiter} if reader is read_delimited else {}
+    return _data_column_names(path, reader, kwargs, None)
 
 
 def read_column(path, name: str, *, delimiter: str | None = None) -> np.ndarray:
@@ -182,12 +227,38 @@ def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
         read_with = ", ".join(f"{k}={v!r}" for k, v in options.items()) or "its default reading options"
         raise InputError(f"{path}: {rows.shape[1]} columns per row, but {space!r} read with {read_with} needs "
                          f"{expected}{_options_for_columns(space, rows.shape[1])}", field="columns")
+    states = space.column_states(**options)
+    if states:
+        rows = _state_codes(path, table, states, lines, unit)
     try:
         return space.from_rows(rows, **options)
     except InputError as e:
         if e.row is not None and 0 <= e.row < len(lines):
             raise e.located(f"{path}, {unit} {int(lines[e.row])}") from None
         raise e.located(str(path)) from None
+
+
+def _state_codes(path, table, states: dict, lines, unit: str) -> np.ndarray:
+    """The table's values with each named-state column's cells (``table.text``) replaced by the state codes."""
+    text = table.text if isinstance(table, Table) else None
+    names = table.names if isinstance(table, Table) else table[1]
+    missing = [j for j in states if text is None or j not in text]
+    if missing:
+        j = missing[0]
+        raise InputError(f"{path}: column {j + 1} ({names[j]}) holds named states, but it was read as numbers "
+                         f"(read the table with text_columns={sorted(states)})", field=str(names[j]))
+    rows = np.array(table.values, dtype=np.float64)
+    for j, known in states.items():
+        index = {name: k for k, name in enumerate(known)}
+        codes = np.fromiter((index.get(v, -1) for v in text[j]), dtype=np.int64, count=len(text[j]))
+        bad = np.flatnonzero(codes < 0)
+        if bad.size:
+            i = int(bad[0])
+            shown = ", ".join(known[:12]) + (", …" if len(known) > 12 else "")
+            raise InputError(f"{path}, {unit} {int(lines[i])}, column {names[j]}: {text[j][i]!r} is not one of the "
+                             f"{len(known)} states {shown}", row=i, field=str(names[j]))
+        rows[:, j] = codes
+    return rows
 
 
 def _options_for_columns(space: Space, n_columns: int) -> str:
@@ -235,8 +306,17 @@ def write_points(path, space: Space, x: torch.Tensor, *, overwrite: bool = False
             raise InputError(f"{path}: {len(names)} column names for {len(header)} columns", field="names")
         header = list(names)
     values = torch.as_tensor(rows).detach().cpu().numpy().astype(np.float64)            # a writable copy
+    states = space.column_states(**options)
     for j, given in (as_given or {}).items():
+        if j in states:
+            continue                                 # a named state is written as its name
         given = np.broadcast_to(np.asarray(given, dtype=np.float64), values[:, j].shape)
         same = np.isclose(values[:, j], given, rtol=ROUND_TRIP_TOLERANCE, atol=ROUND_TRIP_TOLERANCE)
         values[same, j] = given[same]
-    return write_table(path, values, header, overwrite=overwrite)
+    if not states:
+        return write_table(path, values, header, overwrite=overwrite)
+    if len(set(header)) != len(header):
+        raise InputError(f"{path}: column names must be distinct, got {list(header)}", field="names")
+    columns = {name: (np.asarray(states[j], dtype=object)[values[:, j].astype(np.int64)] if j in states
+                      else values[:, j]) for j, name in enumerate(header)}
+    return write_table(path, columns, overwrite=overwrite)

@@ -35,6 +35,8 @@ def default_size(space) -> tuple[int, int]:
 
 
 def symbols_of(space) -> list[str]:
+    if space.state_names is not None:
+        return list(space.state_names)
     return list(space.alphabet) if space.alphabet is not None else [str(k) for k in range(space.K)]
 
 
