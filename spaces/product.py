@@ -498,4 +498,5 @@ def table_factor_options(space_classes) -> tuple[Option, ...]:
 #: the reading option naming a product's factors (module docstring)
 FACTORS_OPTION = Option(
     "factors", str, "the factors in column order, KIND:N with N the factor's columns, and optionally its own "
-    "reading options: KIND:N[:NAME=VALUE|:NAME],… (e.g. torus:2:degrees,euclidean:3)", metavar="KIND:N,...")
+    "reading options: KIND:N[:NAME=VALUE|:NAME],… (e.g. torus:2:degrees,euclidean:3; categories:N is N columns of "
+    "named states, e.g. residue names)", metavar="KIND:N,...")
