@@ -302,3 +302,20 @@ def test_residue_names_of_a_real_structure_from_torsions_to_a_joint_model(tmp_pa
                         "--quiet"], capsys)
     assert code == 0, err
     assert set(pd.read_csv(out_file)["residue_name"]) == {"GLY"}
+
+
+def test_columns_out_of_factor_order_and_empty_state_cells_are_clear_errors(tmp_path, capsys):
+    columns = _law(20)
+    data = tmp_path / "d.csv"
+    _write_csv(data, {"phi": columns["phi"], "psi": columns["psi"], "kind": columns["kind"]})
+    code, _, err = run(["fit", str(data), "--space", "product", "--factors", "categories:1,torus:2:degrees",
+                        "--out", str(tmp_path / "m"), "--quiet"], capsys)
+    assert code == 2 and "column 3 (kind): " in err and "is not a number" in err
+    assert "data column 1 hold named states: name the columns in factor order" in err
+    lines = data.read_text().splitlines()
+    lines[4] = ",".join(lines[4].split(",")[:2] + [""])
+    data.write_text("\n".join(lines) + "\n")
+    code, _, err = run(["fit", str(data), "--space", "product", "--factors", FACTORS, "--out", str(tmp_path / "m"),
+                        "--quiet"], capsys)
+    assert code == 2 and "line 5, column 3 (kind): empty state name cell, expected a state name" in err
+    assert not (tmp_path / "m").exists()

@@ -40,7 +40,7 @@ def _need_numbers(path: Path, name: str, j: int, kind: str, columns_given: bool)
                       f"{hint}", field=name)
 
 
-def read_parquet(path: Path, *, columns=None, labels=None, need_data: bool = True) -> Table:
+def read_parquet(path: Path, *, columns=None, labels=None, need_data: bool = True, label_what: str = "label") -> Table:
     """Read a Parquet file's columns (see the module docstring)."""
     try:
         import pyarrow as pa
@@ -73,7 +73,7 @@ def read_parquet(path: Path, *, columns=None, labels=None, need_data: bool = Tru
         if col.null_count:
             i = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
             raise InputError(f"{path}, row {i + 1}, column {j + 1} ({names[j]}): missing value (null), "
-                             f"expected {'a number' if j in data else 'a label'}", row=i, field=names[j])
+                             f"expected {'a number' if j in data else 'a ' + label_what}", row=i, field=names[j])
     label_values = table.column(len(data)).to_numpy() if label is not None else None
     if data:
         # pyarrow's own conversion puts columns of one type in one block: to_numpy is then a view of it
@@ -104,7 +104,7 @@ def _npz_columns(path: Path, archive) -> tuple[list[str], list[np.ndarray]]:
     return keys, arrays
 
 
-def read_npz(path: Path, *, columns=None, labels=None, need_data: bool = True) -> Table:
+def read_npz(path: Path, *, columns=None, labels=None, need_data: bool = True, label_what: str = "label") -> Table:
     """Read the columns of an NPZ archive (see the module docstring)."""
     try:
         with np.load(path, allow_pickle=False) as archive:

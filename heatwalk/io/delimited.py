@@ -121,6 +121,7 @@ class _Plan:
     data: list[int]
     label: int | None
     columns_given: bool
+    label_what: str = "label"      # what the label column's cells are, in messages ("state name" for named states)
 
 
 def _parse(plan: _Plan, skip, blank_lines: bool, piece: bytes | None = None) -> pd.DataFrame:
@@ -180,8 +181,8 @@ def _row_problem(plan: _Plan, cells: list[str], lineno: int, row: int):
                             "columns with columns=[...]")
                 return InputError(f"{where}, column {j + 1}{name}: {problem}{hint}", row=row, field=str(j))
         elif j == plan.label and not cells[j]:
-            return InputError(f"{where}, column {j + 1}{name}: empty label cell, expected a label",
-                              row=row, field=str(j))
+            return InputError(f"{where}, column {j + 1}{name}: empty {plan.label_what} cell, expected a "
+                              f"{plan.label_what}", row=row, field=str(j))
     return None
 
 
@@ -296,7 +297,7 @@ def _read_rows(plan: _Plan, scan: Scan, skipped: list[int]):
 
 
 def read_delimited(path: Path, *, columns=None, labels=None, delimiter: str | None = None,
-                   need_data: bool = True) -> Table:
+                   need_data: bool = True, label_what: str = "label") -> Table:
     """Read a delimited text table (see the module's layout); the checks of every reader apply."""
     _check_delimiter(delimiter)
     scan = scan_lines(path, delimiter, _chooser(Path(path.name.lower().removesuffix(".gz")).suffix), full=False)
@@ -304,7 +305,7 @@ def read_delimited(path: Path, *, columns=None, labels=None, delimiter: str | No
     data, label, ignored = select_columns(path, names, columns, labels, header=header is not None,
                                           need_data=need_data)
     plan = _Plan(path, scan.delimiter, scan.first if header is not None else None, names, width, data, label,
-                 columns is not None)
+                 columns is not None, label_what)
     values, df, lines = _read_rows(plan, scan, scan.skipped)
     label_values = None
     if label is not None:
@@ -312,8 +313,8 @@ def read_delimited(path: Path, *, columns=None, labels=None, delimiter: str | No
         empty = np.flatnonzero(label_values == "")
         if empty.size:
             i = int(empty[0])
-            raise InputError(f"{path}, line {lines[i]}, column {label + 1} ({names[label]}): empty label cell, "
-                             "expected a label", row=i, field=names[label])
+            raise InputError(f"{path}, line {lines[i]}, column {label + 1} ({names[label]}): empty {label_what} "
+                             f"cell, expected a {label_what}", row=i, field=names[label])
     del df
     return Table(values=writable(values), names=[names[j] for j in data], lines=lines, ignored=ignored,
                  labels=label_values, label_name=None if label is None else names[label], path=path, unit="line")

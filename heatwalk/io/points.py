@@ -101,7 +101,15 @@ class TableFiles:
         if mapped_array_file(path):
             return self._read_mapped(path, space_cls, file_opts, build_opts, columns, labels, delimiter)
         text_columns = space_cls.table_text_columns(**file_opts)
-        table = read_table(path, columns=columns, labels=labels, delimiter=delimiter, text_columns=text_columns)
+        try:
+            table = read_table(path, columns=columns, labels=labels, delimiter=delimiter, text_columns=text_columns)
+        except InputError as e:
+            if not text_columns or "is not a number" not in e.message:
+                raise
+            which = ", ".join(str(c + 1) for c in text_columns)
+            raise InputError(f"{e.message} (the factors take the data columns in order, and data column"
+                             f"{'s' if len(text_columns) > 1 else ''} {which} hold named states: name the columns in "
+                             f"factor order with columns / --columns)", row=e.row, field=e.field) from None
         if table.values.shape[1] == 0:
             raise InputError(f"{path}: no data columns are left (all were ignored or used as labels)",
                              field="columns")

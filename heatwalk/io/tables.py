@@ -97,7 +97,7 @@ def _with_text_columns(path: Path, reader, kwargs: dict, columns, labels, text_c
     table = reader(path, columns=numeric, labels=labels, need_data=False, **kwargs)
     text = {}
     for p in text_columns:
-        cells = reader(path, columns=[], labels=names[p], need_data=False, **kwargs).labels
+        cells = reader(path, columns=[], labels=names[p], need_data=False, label_what="state name", **kwargs).labels
         text[p] = np.asarray([v.decode() if isinstance(v, bytes) else str(v) for v in cells.tolist()], dtype=object)
         if len(text[p]) != len(table.lines):
             raise InputError(f"{path}: column {names[p]!r} has {len(text[p])} rows, the numeric columns "
