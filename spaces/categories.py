@@ -48,6 +48,15 @@ MAX_STATES = 4096
 SEQUENCE_FORMATS = ("auto", "fasta", "text")
 
 
+def _holds_text(x) -> bool:
+    """Whether ``x`` is a name, or a (nested) list / array of names, rather than numbers."""
+    while isinstance(x, (list, tuple)) and x:
+        x = x[0]
+    if hasattr(x, "dtype") and not isinstance(x, torch.Tensor):
+        return x.dtype.kind in "OUS" and (x.size == 0 or isinstance(x.flat[0], str))
+    return isinstance(x, str)
+
+
 class Categories(FiniteStateSpace):
     """Sequences of ``L`` tokens, each one of ``K`` states; stored as int64 tensors of shape (n, L).
 
@@ -216,10 +225,13 @@ class Categories(FiniteStateSpace):
 
     # ----- validation, file rows -------------------------------------------------------------------
     def validate(self, x) -> torch.Tensor:
-        """Return ``x`` as int64 codes (n, L) in [0, K); accepts integer-valued floats.
+        """Return ``x`` as int64 codes (n, L) in [0, K); accepts integer-valued floats, and with ``state_names``
+        the names themselves (:meth:`codes_of_names`).
 
         Raises :class:`InputError` naming the first bad row and position.
         """
+        if self.state_names is not None and _holds_text(x):
+            x = self.codes_of_names(x)
         # cpu: a tensor keeps its device; other input is read on the CPU
         t = real_tensor(x, "sequences", dtype=None, expected="integer state codes")
         if t.dim() == 1 and t.shape[0] == self.L:
@@ -246,6 +258,29 @@ class Categories(FiniteStateSpace):
         if self.end_state is not None:
             self._check_ends(t)
         return t
+
+    def codes_of_names(self, names) -> torch.Tensor:
+        """Codes (n, L) of state names: rows of L names, or with L = 1 one name per point (a single name is one
+        point); a name outside ``state_names`` is refused naming its row and position."""
+        if self.state_names is None:
+            raise InputError(f"{self!r} has no state_names: give integer state codes", field="x")
+        if isinstance(names, str):
+            names = [names]
+        rows = [[v] if isinstance(v, str) and self.L == 1 else v for v in names]
+        if self.L > 1 and rows and all(isinstance(v, str) for v in rows):
+            rows = [rows]                                      # one point: L names
+        index = {name: k for k, name in enumerate(self.state_names)}
+        codes = []
+        for i, row in enumerate(rows):
+            if isinstance(row, str) or len(row) != self.L:
+                raise InputError(f"row {i}: expected {self.L} state names, got {row!r}", row=i)
+            for j, v in enumerate(row):
+                if v not in index:
+                    raise InputError(f"row {i}, position {j}: {v!r} is not one of the states "
+                                     f"{', '.join(self.state_names)}", row=i, field=str(j))
+            codes.append([index[v] for v in row])
+        # cpu: names are parsed on the CPU
+        return torch.tensor(codes, dtype=torch.int64)
 
     def _check_ends(self, t: torch.Tensor) -> None:
         end = t == self.end_state

@@ -319,3 +319,19 @@ def test_columns_out_of_factor_order_and_empty_state_cells_are_clear_errors(tmp_
                         "--quiet"], capsys)
     assert code == 2 and "line 5, column 3 (kind): empty state name cell, expected a state name" in err
     assert not (tmp_path / "m").exists()
+
+
+def test_names_are_points_in_python_too(fitted):
+    """Categories with state_names takes names wherever it takes codes: validate, and given= of Model.sample."""
+    import heatwalk
+
+    space = Categories(3, 2, state_names=["wet", "dry", "icy"])
+    assert space.validate([["icy", "wet"], ["dry", "dry"]]).tolist() == [[2, 0], [1, 1]]
+    assert space.validate(["icy", "wet"]).tolist() == [[2, 0]]                      # one point of L names
+    with pytest.raises(InputError, match="row 1, position 0: 'hot' is not one of the states wet, dry, icy"):
+        space.validate([["icy", "wet"], ["hot", "dry"]])
+    model = heatwalk.load(fitted[2])
+    angles, kinds = model.sample(50, given={1: "PRO"}, seed=1, progress=False)
+    assert kinds.tolist() == [[2]] * 50
+    with pytest.raises(InputError, match="'TRP' is not one of the states"):
+        model.sample(5, given={1: "TRP"}, progress=False)
