@@ -289,7 +289,7 @@ class Product(Space):
             try:
                 out.append(f.from_rows(part if isinstance(f, Manifold) else part.round().to(torch.int64), **o))
             except InputError as e:
-                raise InputError(f"factor {i} ({f!r}): {e.message}", row=e.row, field=e.field) from None
+                raise _in_row_terms(e, i, f, span.start) from None
         return self.validate(tuple(out))
 
     def to_rows(self, x, **options):
@@ -319,7 +319,7 @@ class Product(Space):
             try:
                 given[i] = f.from_rows(part if isinstance(f, Manifold) else part.round().to(torch.int64), **o)
             except InputError as e:
-                raise InputError(f"factor {i} ({f!r}): {e.message}", row=e.row, field="fix") from None
+                raise _in_row_terms(e, i, f, span.start) from None
         return given
 
     # ----- the clock and the forward process ----------------------------------------------------
@@ -394,6 +394,17 @@ class Product(Space):
         if len(out) == len(self.factors):
             raise InputError("given: every factor is fixed; nothing is left to sample", field="given")
         return out
+
+
+def _in_row_terms(error: InputError, i: int, factor, start: int) -> InputError:
+    """Factor i's error about row r, column j of its own columns, as one about column start + j of the
+    product's rows (the factor named after the place, so a table reader can name the column)."""
+    if error.field is not None and error.field.isdigit() and error.row is not None:
+        j = int(error.field)
+        message = error.message.replace(f"row {error.row}, column {j}: ", "", 1)
+        return InputError(f"row {error.row}, column {start + j}: factor {i} ({factor!r}): {message}", row=error.row,
+                          field=str(start + j))
+    return InputError(f"factor {i} ({factor!r}): {error.message}", row=error.row, field=error.field)
 
 
 def parse_factor_spec(text) -> list[tuple[str, int, dict]]:

@@ -78,8 +78,8 @@ class Sphere(IsotropicKernel, Manifold):
             if i is not None:
                 hint = (" (lonlat reads longitude first, then latitude: are the columns swapped?)"
                         if name == "latitude" and float(x[i, 0]) ** 2 <= 8100 else "")
-                raise InputError(f"row {i}, column {j + 1} ({name}): {float(x[i, j]):g} degrees is outside "
-                                 f"[-{limit:g}, {limit:g}]{hint}", row=i, field=name)
+                raise InputError(f"row {i}, column {j}: {name} {float(x[i, j]):g} degrees is outside "
+                                 f"[-{limit:g}, {limit:g}]{hint}", row=i, field=str(j))
         lon, lat = torch.deg2rad(x[:, 0]), torch.deg2rad(x[:, 1])
         pts = torch.stack([torch.cos(lat) * torch.cos(lon), torch.cos(lat) * torch.sin(lon), torch.sin(lat)], -1)
         return self.project(pts)

@@ -62,7 +62,7 @@ def test_fit_then_sample_roundtrip(tmp_path, angles_csv, capsys):
     ("0.1,0.2\n0.3,0.4,0.5\n", r"line 2: 3 columns, but the first row has 2"),
     ("", r"no data rows"),
     ("phi,psi\n", r"no data rows"),
-    ("0.1,0.2\n0.3,0.4\n120.0,45.0\n", r"line 3: row 2, column 0: angle 120 is outside .*degrees"),
+    ("0.1,0.2\n0.3,0.4\n120.0,45.0\n", r"line 3, column 1: angle 120 is outside .*degrees"),
 ])
 def test_bad_input_exit_2_and_nothing_written(tmp_path, capsys, content, message):
     import re
@@ -116,16 +116,16 @@ BAD_MANIFOLD_FILES = [
     # (space, extra flags, file content, expected message)
     ("sphere", [], "0,0,1\n0,0.5,0.5\n", r"line 2: .*norm"),
     ("sphere", [], "0,0,1\n0,0,0\n", r"line 2: .*(zero|norm)"),
-    ("sphere", ["--lonlat"], "20,10\n20,95\n", r"line 2: .*\(latitude\): 95 degrees"),
+    ("sphere", ["--lonlat"], "20,10\n20,95\n", r"line 2, column 2: latitude 95 degrees"),
     ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0,0,0,1,0,0,0,-1\n", r"line 2: .*(reflection|det)"),
     ("so3", [], "1,0,0,0,1,0,0,0,1\n1,0.2,0,0,1,0,0,0,1\n", r"line 2: .*not a rotation matrix"),
     ("so3", ["--rotation-format", "quaternion", "--quaternion-order", "wxyz"], "1,0,0,0\n0,0,0,0\n",
      r"line 2: .*zero"),
     ("so3", ["--rotation-format", "quaternion"], "1,0,0,0\n", r"order must be stated"),
     ("so3", [], "1,0,0\n", r"3 columns per row.*needs 9"),
-    ("simplex", [], "0.2,0.3,0.5\n0.2,-0.1,0.9\n", r"line 2: .*negative"),
+    ("simplex", [], "0.2,0.3,0.5\n0.2,-0.1,0.9\n", r"line 2, column 2: part -0.1 is negative"),
     ("simplex", [], "0.2,0.3,0.5\n0.2,0.3,0.4\n", r"line 2: .*sum"),
-    ("simplex", [], "0.2,0.3,0.5\n0.0,0.5,0.5\n", r"line 2: .*zero.*replacement"),
+    ("simplex", [], "0.2,0.3,0.5\n0.0,0.5,0.5\n", r"line 2, column 1: part is exactly 0.*zero.*replacement"),
     ("simplex", [], "1.0\n1.0\n", r"K"),
 ]
 

@@ -292,3 +292,25 @@ def test_coordinates_picture_of_every_dimension(d):
 class _FakeModel:
     def __init__(self, space):
         self.space = space
+
+
+def test_bad_values_are_named_by_their_column_in_files_and_in_fix(fitted, tmp_path, capsys):
+    """A value out of range is named by the file's line and column (1-based, with its name), or by the column
+    name of --fix / a --given table; a value that is not finite is refused before sampling."""
+    folder, data, model = fitted
+    out = tmp_path / "s.csv"
+    code, _, err = run(["sample", str(model), "--n", "5", "--out", str(out), "--fix", "phi=400", "--quiet"], capsys)
+    assert code == 2 and "--fix: phi: factor 0 (Torus(n=1)): angle 400 is outside [-360, 360] degrees" in err
+    code, _, err = run(["sample", str(model), "--n", "5", "--out", str(out), "--fix", "phi=inf", "--quiet"], capsys)
+    assert code == 2 and "--fix: phi='inf' is not a finite number" in err
+    given = tmp_path / "given.csv"
+    _write(given, {"phi": [10.0, 500.0]})
+    code, _, err = run(["sample", str(model), "--n", "2", "--out", str(out), "--given", str(given), "--quiet"],
+                       capsys)
+    assert code == 2 and "given.csv: line 3, phi: factor 0 (Torus(n=1)): angle 500 is outside" in err
+    bad = tmp_path / "bad.csv"
+    _write(bad, {"x": [0.0, 1.0], "phi": [10.0, 400.0], "y": [0.0, 0.0]})
+    code, _, err = run(["fit", str(bad), "--space", "product", "--factors", FACTORS, "--degrees", "--columns",
+                        "phi,x,y", "--out", str(tmp_path / "m"), "--quiet"], capsys)
+    assert code == 2 and "bad.csv, line 3, column 1 (phi): factor 0 (Torus(n=1)): angle 400 is outside" in err
+    assert not out.exists() and not (tmp_path / "m").exists()

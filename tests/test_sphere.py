@@ -430,9 +430,9 @@ def test_validation_errors():
         s2.validate([[1.0, 0, 0], [1.1, 0, 0]])
     ok = s2.validate([[1.0 + 5e-7, 0, 0]])  # within 1e-6: renormalised
     assert float(ok.norm()) == 1.0
-    with pytest.raises(InputError, match=r"row 1, column 2 \(latitude\): 91 degrees"):
+    with pytest.raises(InputError, match=r"row 1, column 1: latitude 91 degrees"):
         s2.from_rows([[0.0, 0.0], [0.0, 91.0]], lonlat=True)
-    with pytest.raises(InputError, match=r"row 0, column 1 \(longitude\): 400 degrees"):
+    with pytest.raises(InputError, match=r"row 0, column 0: longitude 400 degrees"):
         s2.from_rows([[400.0, 0.0]], lonlat=True)
     # a file in latitude, longitude order is caught where a "latitude" leaves [-90, 90], with a hint
     with pytest.raises(InputError, match="are the columns swapped"):

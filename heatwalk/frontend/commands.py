@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import time
 from pathlib import Path
 
@@ -164,9 +165,10 @@ def _output_names(model, options):
     return None
 
 
-def _given_from_rows(model, names, rows, options, where) -> tuple[dict, dict]:
+def _given_from_rows(model, names, rows, options, where, place=None) -> tuple[dict, dict]:
     """``given`` for Model.sample from named values in the data file's units (one row or one per sample), and
-    the values as given by column index (one value or one per sample), for writing them back exactly."""
+    the values as given by column index (one value or one per sample), for writing them back exactly.
+    ``place(i)`` names row i of a file in messages (e.g. "line 3")."""
     import torch
 
     columns = _column_names(model, options)
@@ -185,7 +187,11 @@ def _given_from_rows(model, names, rows, options, where) -> tuple[dict, dict]:
     try:
         given = space.given_from_columns(index, values, names=columns, **options)
     except InputError as e:
-        raise InputError(f"{where}: {e.message}", row=e.row, field="fix") from None
+        from heatwalk.io.tables import in_file_terms
+
+        row = f"{place(e.row) if place else f'row {e.row + 1}'}, " if len(rows) > 1 and e.row is not None else ""
+        message = in_file_terms(e, columns, numbered=False).message      # the model's columns, not the file's
+        raise InputError(f"{where}: {row}{message}", row=e.row, field="fix") from None
     as_given = {i: values[0, k].item() if len(rows) == 1 else values[:, k].numpy() for k, i in enumerate(index)
                 if i not in states}
     return given, as_given
@@ -202,9 +208,12 @@ def _fixed_number(value, column: str, states, where: str) -> float:
                              field="fix")
         return float(states.index(name))
     try:
-        return float(value)
+        number = float(value)
     except (TypeError, ValueError):
         raise InputError(f"{where}: {column}={value!r} is not a number", field="fix") from None
+    if not math.isfinite(number):
+        raise InputError(f"{where}: {column}={value!r} is not a finite number", field="fix")
+    return number
 
 
 def _parse_fix(model, fixes, options) -> tuple[dict, dict]:
@@ -235,7 +244,8 @@ def _parse_given_file(model, path, options, n: int) -> tuple[dict, dict]:
     for k, cells in (table.text or {}).items():
         for row, cell in zip(rows, cells):
             row[k] = cell
-    return _given_from_rows(model, table.names, rows, options, str(path))
+    return _given_from_rows(model, table.names, rows, options, str(path),
+                            place=lambda i: f"{table.unit} {int(table.lines[i])}")
 
 
 def cmd_sample(args) -> int:

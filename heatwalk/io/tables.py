@@ -234,8 +234,30 @@ def points_from_table(path, space: Space, table, **options) -> torch.Tensor:
         return space.from_rows(rows, **options)
     except InputError as e:
         if e.row is not None and 0 <= e.row < len(lines):
-            raise e.located(f"{path}, {unit} {int(lines[e.row])}") from None
+            names = table.names if isinstance(table, Table) else table[1]
+            e = in_file_terms(e, names)
+            where = f"{path}, {unit} {int(lines[e.row])}"
+            if e.message.startswith("column "):                 # "data.csv, line 7, column 2 (psi): …"
+                raise InputError(f"{where}, {e.message}", row=e.row, field=e.field) from None
+            raise e.located(where) from None
         raise e.located(str(path)) from None
+
+
+def in_file_terms(error: InputError, names, numbered: bool = True) -> InputError:
+    """A space's error about row i, column j of its rows (0-based, ``field`` = str(j)), reworded for a message
+    that already names the line: "row i, column j: …" becomes "column j+1 (name): …" (``numbered=False``:
+    "name: …"), and "row i: …" loses its row. Other messages are kept."""
+    message, row = error.message, error.row
+    field = error.field
+    if field is not None and field.isdigit() and int(field) < len(names):
+        j = int(field)
+        named = "" if names[j] == f"column_{j + 1}" else f" ({names[j]})"      # a file without a header
+        message = message.replace(f"row {row}, column {j}: ",
+                                  f"column {j + 1}{named}: " if numbered else f"{names[j]}: ", 1)
+        field = str(names[j])
+    elif message.startswith(f"row {row}: "):
+        message = message[len(f"row {row}: "):]
+    return InputError(message, row=row, field=field)
 
 
 def _state_codes(path, table, states: dict, lines, unit: str) -> np.ndarray:
