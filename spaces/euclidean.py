@@ -71,6 +71,7 @@ class Euclidean(Manifold):
         self.loc = _per_coordinate("loc", loc, self.d, positive=False)
         self.scale = _per_coordinate("scale", scale, self.d, positive=True)
         self._log_scale_sum = 0.0 if self.scale is None else float(sum(math.log(v) for v in self.scale))
+        self._tensors: dict = {}      # (dtype, device) -> (m, s), made once each (read-only: never written to)
 
     def config(self) -> dict:
         out = {"kind": "euclidean", "d": self.d, "t_max": self.t_max, "process": self.process}
@@ -109,12 +110,15 @@ class Euclidean(Manifold):
         return filled == fitted
 
     def _m_s(self, x: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
-        """(m, s) as tensors like x (zeros and ones while unset)."""
-        m = torch.zeros(self.d, dtype=x.dtype, device=x.device) if self.loc is None else \
-            torch.tensor(self.loc, dtype=x.dtype, device=x.device)
-        s = torch.ones(self.d, dtype=x.dtype, device=x.device) if self.scale is None else \
-            torch.tensor(self.scale, dtype=x.dtype, device=x.device)
-        return m, s
+        """(m, s) as tensors like x (zeros and ones while unset), made once per dtype and device."""
+        key = (x.dtype, x.device)
+        if key not in self._tensors:
+            m = torch.zeros(self.d, dtype=x.dtype, device=x.device) if self.loc is None else \
+                torch.tensor(self.loc, dtype=x.dtype, device=x.device)
+            s = torch.ones(self.d, dtype=x.dtype, device=x.device) if self.scale is None else \
+                torch.tensor(self.scale, dtype=x.dtype, device=x.device)
+            self._tensors[key] = (m, s)
+        return self._tensors[key]
 
     def standardise(self, x: torch.Tensor) -> torch.Tensor:
         """z = S⁻¹(x - m)."""
