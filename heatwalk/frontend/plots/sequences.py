@@ -1,9 +1,10 @@
 """Pictures of sequences (Categories): per-position symbol frequencies and the length distribution.
 
-Top row: heat maps of the frequency of each symbol (rows, named by the space's alphabet, or the state
-codes 0 … K-1 without one) at each position (columns, 1-based) for the data, for the samples, and
-their difference samples − data. A frequency at position l is taken over the sequences that reach
-position l. Bottom: the distribution of sequence lengths.
+Top row: heat maps of the frequency of each symbol (rows, named by the space's state names or
+alphabet, or the state codes 0 … K-1 without either) at each position (columns, 1-based) for the
+data, for the samples, and their difference samples − data. A frequency at position l is taken over
+the sequences that reach position l. Bottom: the distribution of sequence lengths, drawn when the
+lengths differ (every sequence of a fixed length has the same one: the row is then left out).
 
 Points may be state codes (n, L) on the space, or strings over its alphabet of any lengths (as
 records are read from FASTA files). A sequence's length is its number of symbols; with
@@ -94,7 +95,9 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
     panels = [(name, f) for name, f in freqs.items()]
     if len(freqs) == 2:
         panels.append(("samples − data", freqs["samples"] - freqs["data"]))
-    gs = fig.add_gridspec(2, len(panels), height_ratios=[2.0, 1.0])
+    lengths = {int(n) for _, c in sets for n in np.unique((c >= 0).sum(1))}
+    gs = fig.add_gridspec(2, len(panels), height_ratios=[2.0, 1.0]) if len(lengths) > 1 else \
+        fig.add_gridspec(1, len(panels))
     for k, (name, f) in enumerate(panels):
         ax = fig.add_subplot(gs[0, k])
         diff = name.startswith("samples −")
@@ -104,11 +107,12 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
         ax.set_yticks(range(space.K), symbols if space.K <= 40 else None, fontsize="small")
         ax.xaxis.set_major_locator(MaxNLocator(integer=True, min_n_ticks=1))
         ax.set_xlabel("position")
-        ax.set_ylabel("symbol")
+        ax.set_ylabel("state" if space.state_names is not None else "symbol")
         n = next(c.shape[0] for s, c in sets if s == name) if not diff else None
         ax.set_title(f"{name} (n={n})" if n is not None else name, fontsize="small")
         fig.colorbar(im, ax=ax, label="difference in frequency" if diff else "frequency", shrink=0.9)
-    _lengths(fig.add_subplot(gs[1, :]), sets)
+    if len(lengths) > 1:
+        _lengths(fig.add_subplot(gs[1, :]), sets)
 
 
 def _lengths(ax, sets) -> None:
