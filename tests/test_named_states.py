@@ -149,6 +149,11 @@ def test_a_product_read_from_a_table_takes_its_states_from_the_data_and_writes_t
     np.testing.assert_allclose(back["phi"].to_numpy(), columns["phi"], atol=1e-9)
     again = files_for(space).read(out, space, options, columns=["phi", "psi", "kind"])
     assert torch.equal(again[1], kinds)
+    npz = files_for(space).write(tmp_path / "back.npz", space, (angles, kinds), options, overwrite=False,
+                                 names=["phi", "psi", "kind"])
+    with np.load(npz, allow_pickle=False) as archive:                   # text stored as unicode, not pickled
+        assert archive["kind"].tolist() == columns["kind"].tolist()
+    assert torch.equal(files_for(space).read(npz, space, options, columns=["phi", "psi", "kind"])[1], kinds)
 
 
 def test_a_state_the_model_does_not_know_is_refused_naming_line_column_and_states(tmp_path):

@@ -196,8 +196,8 @@ def write_table(path, data, names=None, *, overwrite: bool = False) -> Path:
         _refuse_numeric_names(path, cols)
     with atomic_path(path, overwrite=overwrite) as tmp:
         if fmt == "npz":
-            with open(tmp, "wb") as f:
-                np.savez(f, **cols)
+            with open(tmp, "wb") as f:                      # text as fixed-width unicode: an object array pickles
+                np.savez(f, **{k: v.astype(str) if v.dtype == object else v for k, v in cols.items()})
         elif fmt == "parquet":
             pd.DataFrame(cols).to_parquet(tmp, index=False)
         else:
