@@ -38,7 +38,8 @@ which never test which space they hold):
   ``"absorbing"``  a finite chain with a mask state (the unmasking sampler);
   ``"sequences"``  points are sequences of states at L positions (k-mer metrics);
   ``"coordinates"``  points are vectors of flat coordinates that can be fixed one by
-  one, with reconstruction guidance (torus, R^d).
+  one, with reconstruction guidance (torus, R^d);
+  ``"factors"``  points are tuples of factor points (a product; metrics also run on each factor).
 
 - ``plot_kind``: which picture :mod:`heatwalk.frontend.plots` draws for it
   (``"angles"``, ``"coordinates"``, ``"directions"``, ``"rotations"``,
@@ -73,6 +74,7 @@ CAPABILITIES = {
     "absorbing": "an absorbing chain (process='absorbing')",
     "sequences": "points that are sequences of states",
     "coordinates": "a space of flat coordinates (a torus or R^d)",
+    "factors": "a product of spaces (points are tuples of factor points)",
 }
 
 

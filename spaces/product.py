@@ -107,7 +107,7 @@ class Product(Space):
 
     @property
     def capabilities(self) -> frozenset[str]:
-        return frozenset()
+        return frozenset({"factors"})
 
     # ----- batches of tuples --------------------------------------------------------------------
     def n_points(self, x) -> int:

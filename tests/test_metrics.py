@@ -69,3 +69,26 @@ def test_circular_w1_closed_form_against_a_linear_program():
         assert abs(circle_w1(u, v) - lp.fun) < 1e-9, (n, m, circle_w1(u, v), lp.fun)
     with pytest.raises(heatwalk.InputError, match="NaN"):
         circle_w1(np.array([0.1, np.nan]), np.array([0.2]))
+
+
+def test_a_products_metrics_repeat_on_each_factor_alone():
+    """per_factor: factor i's metrics are those of the factor's own points (MMD² of the torus part as on the torus
+    alone), and the 1-mer TV of a categorical factor is 0.5 Σ_k |p_k − q_k| of the state shares (computed here with
+    numpy's bincount)."""
+    import torch
+
+    from heatwalk.frontend.evaluation import sample_metrics
+    from heatwalk.spaces import Categories, Product, Torus
+
+    g = torch.Generator().manual_seed(0)
+    space = Product(Torus(1), Categories(3, 1))
+    pts = [(torch.rand(200, 1, generator=g, dtype=torch.float64) * 6 - 3, torch.randint(0, 3, (200, 1), generator=g))
+           for _ in range(3)]
+    metrics = sample_metrics(space, *pts)
+    assert set(metrics["per_factor"]) == {"0", "1"}
+    alone = sample_metrics(Torus(1), *(p[0] for p in pts))
+    assert metrics["per_factor"]["0"]["mmd_squared"]["samples_vs_half_a"] == alone["mmd_squared"]["samples_vs_half_a"]
+    assert "wasserstein1_per_angle_rad" in metrics["per_factor"]["0"]
+    p, q = (np.bincount(x[1][:, 0].numpy(), minlength=3) / 200 for x in pts[:2])
+    tv = metrics["per_factor"]["1"]["kmer_tv_distance"]["1"]["samples_vs_half_a"]
+    assert tv == pytest.approx(0.5 * np.abs(p - q).sum(), abs=1e-12)

@@ -254,6 +254,11 @@ def test_evaluate_and_plot_a_model_with_named_states(fitted, tmp_path, capsys, f
                           "--quiet"], capsys)
     assert code == 0, err
     assert "plus the ELBO of the finite factors given them" in out and (report / "data_vs_samples.png").is_file()
+    import json
+
+    per_factor = json.loads((report / "evaluation.json").read_text())["sample_metrics"]["per_factor"]
+    assert "wasserstein1_per_angle_rad" in per_factor["0"] and "1" in per_factor["1"]["kmer_tv_distance"]
+    assert "factor 1 alone (its marginal):" in out
     figures.clear()
     code, _, err = run(["plot", "--model", str(model), "--data", str(data), "--out", str(tmp_path / "p.png"),
                         "--n-samples", "200", "--quiet"], capsys)

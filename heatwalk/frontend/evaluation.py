@@ -15,7 +15,8 @@ is written):
   what it needs: MMD² (Gaussian kernel in the space's distance, median-heuristic
   bandwidth on A) with its permutation z on every space; the circular Wasserstein-1
   distance per angle on spaces of angles; k-mer spectrum total-variation distances
-  and the length distribution on sequences. Each comes with its noise floor: the
+  and the length distribution on sequences; on a product, all of these again on
+  each factor's marginal (``per_factor``). Each comes with its noise floor: the
   same statistic for B against A;
 - ``timings_seconds``.
 """
@@ -69,6 +70,12 @@ def _lengths(space, samples, half_a, half_b, bandwidth=None) -> dict:
             "mean_length_samples": ls, "mean_length_half_a": la, "mean_length_half_b": lb}
 
 
+def _per_factor(space, samples, half_a, half_b, bandwidth=None) -> dict:
+    """Every metric that applies to each factor, on that factor's part of the points (its marginal); each
+    factor's MMD² takes its own bandwidth (the median distance within its half A)."""
+    return {str(i): sample_metrics(f, samples[i], half_a[i], half_b[i]) for i, f in enumerate(space.factors)}
+
+
 @dataclass(frozen=True)
 class SampleMetric:
     """A two-sample metric: its report key, the space capabilities it needs, and how to compute it."""
@@ -86,6 +93,7 @@ SAMPLE_METRICS = (
     SampleMetric("wasserstein1_per_angle_rad", frozenset({"angles"}), _circular_w1),
     SampleMetric("kmer_tv_distance", frozenset({"sequences"}), _kmers),
     SampleMetric("length_distribution", frozenset({"variable_length"}), _lengths),
+    SampleMetric("per_factor", frozenset({"factors"}), _per_factor),
 )
 
 
@@ -214,6 +222,9 @@ def _metric_lines(metrics: dict, indent: str = "  ", who: str = "samples") -> li
         lines.append(f"{indent}lengths       TV {who} vs half A {d['samples_vs_half_a']:.4f}, floor "
                      f"{d['noise_floor_half_b_vs_half_a']:.4f}; mean length samples {d['mean_length_samples']:.1f}, "
                      f"half A {d['mean_length_half_a']:.1f}")
+    for i, factor in metrics.get("per_factor", {}).items():
+        lines.append(f"{indent}factor {i} alone (its marginal):")
+        lines += _metric_lines(factor, indent=indent + "  ", who=who)
     return lines
 
 

@@ -79,6 +79,11 @@ _METRICS_PROPERTIES = {
     }, description="variable-length sequences"),
 }
 _METRICS_REQUIRED = ["mmd_squared"]
+_METRICS_PROPERTIES["per_factor"] = {
+    "type": "object", "additionalProperties": _obj(dict(_METRICS_PROPERTIES), required=_METRICS_REQUIRED),
+    "description": "products: the same metrics on each factor's marginal (keys \"0\", \"1\", …: the factor index)"}
+#: keys whose value repeats the metrics' own schema (not listed again by :func:`schema_rows`)
+_REPEATED = ("uniform_baseline", "per_factor")
 
 REPORT_SCHEMA: dict = _obj({
     "schema": {"type": "string", "const": SCHEMA_ID, "description": "name and version of this schema"},
@@ -210,7 +215,9 @@ def schema_rows(schema: dict = REPORT_SCHEMA, prefix: str = "") -> list[tuple[st
             kind = kind.replace("array", f"array of {sub['items']['type']}", 1)
         optional = "" if key in schema.get("required", []) else " (optional)"
         rows.append((path, kind + optional, sub.get("description", "")))
-        if "properties" in sub and key != "uniform_baseline":
+        if key in _REPEATED:
+            continue
+        if "properties" in sub:
             rows.extend(schema_rows(sub, path + "."))
         elif isinstance(sub.get("additionalProperties"), dict):
             rows.extend(schema_rows(sub["additionalProperties"], path + ".K."))
