@@ -36,8 +36,8 @@ from heatwalk.io.source import PARQUET_MAGIC, ZIP_MAGIC, check_readable, magic
 from heatwalk.io.table_base import Table
 from heatwalk.spaces.base import Space
 
-__all__ = ["Table", "read_table", "read_column", "table_column_names", "write_table", "read_points", "points_from_table",
-           "write_points", "check_output_format"]
+__all__ = ["Table", "read_table", "read_column", "table_column_names", "write_table", "read_points",
+           "points_from_table", "write_points", "check_output_format"]
 
 
 def _reader_of(path: Path):
