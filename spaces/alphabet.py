@@ -108,3 +108,9 @@ def sorted_state_names(values) -> list[str]:
         return sorted(distinct, key=int) if all(v.lstrip("-").isdigit() for v in distinct) else sorted(distinct)
     except ValueError:
         return sorted(distinct)
+
+
+def shown_states(names, limit: int = 12) -> str:
+    """State names for a message: the first ``limit`` of them, comma-separated, then "…" when there are more."""
+    names = list(names)
+    return ", ".join(names[:limit]) + (", …" if len(names) > limit else "")

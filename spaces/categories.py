@@ -37,7 +37,8 @@ import torch
 from heatwalk.errors import InputError
 from heatwalk.checks import check_choice, check_int, check_positive_int
 from heatwalk.kernels.ctmc import CTMC, DTYPE, check_rate_matrix, sample_categorical
-from heatwalk.spaces.alphabet import check_alphabet, check_state_names, encode_strings, sorted_state_names
+from heatwalk.spaces.alphabet import (check_alphabet, check_state_names, encode_strings, shown_states,
+                                      sorted_state_names)
 from heatwalk.spaces.base import GivenPart, Option, generator_device, real_tensor
 from heatwalk.spaces.finite import FiniteStateSpace
 
@@ -277,7 +278,7 @@ class Categories(FiniteStateSpace):
             for j, v in enumerate(row):
                 if v not in index:
                     raise InputError(f"row {i}, position {j}: {v!r} is not one of the states "
-                                     f"{', '.join(self.state_names)}", row=i, field=str(j))
+                                     f"{shown_states(self.state_names)}", row=i, field=str(j))
             codes.append([index[v] for v in row])
         # cpu: names are parsed on the CPU
         return torch.tensor(codes, dtype=torch.int64)
@@ -338,7 +339,7 @@ class Categories(FiniteStateSpace):
             if isinstance(v, str) and self.state_names is not None:
                 if v not in self.state_names:
                     raise InputError(f"given: position {pos}: {v!r} is not one of the states "
-                                     f"{', '.join(self.state_names)}", field="given")
+                                     f"{shown_states(self.state_names)}", field="given")
                 codes.append(self.state_names.index(v))
             elif isinstance(v, str):
                 if self.alphabet is None or v not in self.alphabet:

@@ -203,9 +203,10 @@ def _fixed_number(value, column: str, states, where: str) -> float:
     if states is not None:
         name = value.decode() if isinstance(value, bytes) else str(value).strip()
         if name not in states:
-            shown = ", ".join(states[:12]) + (", …" if len(states) > 12 else "")
-            raise InputError(f"{where}: {column}={name!r} is not one of its {len(states)} states {shown}",
-                             field="fix")
+            from heatwalk.spaces.alphabet import shown_states
+
+            raise InputError(f"{where}: {column}={name!r} is not one of its {len(states)} states "
+                             f"{shown_states(states)}", field="fix")
         return float(states.index(name))
     try:
         number = float(value)

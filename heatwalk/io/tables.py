@@ -34,6 +34,7 @@ from heatwalk.io.delimited import read_delimited
 from heatwalk.io.formats import check_output_format
 from heatwalk.io.source import PARQUET_MAGIC, ZIP_MAGIC, check_readable, magic
 from heatwalk.io.table_base import Table
+from heatwalk.spaces.alphabet import shown_states
 from heatwalk.spaces.base import Space
 
 __all__ = ["Table", "read_table", "read_column", "table_column_names", "write_table", "read_points",
@@ -276,9 +277,8 @@ def _state_codes(path, table, states: dict, lines, unit: str) -> np.ndarray:
         bad = np.flatnonzero(codes < 0)
         if bad.size:
             i = int(bad[0])
-            shown = ", ".join(known[:12]) + (", …" if len(known) > 12 else "")
             raise InputError(f"{path}, {unit} {int(lines[i])}, column {names[j]}: {text[j][i]!r} is not one of the "
-                             f"{len(known)} states {shown}", row=i, field=str(names[j]))
+                             f"{len(known)} states {shown_states(known)}", row=i, field=str(names[j]))
         rows[:, j] = codes
     return rows
 
