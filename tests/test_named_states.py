@@ -263,8 +263,11 @@ def test_evaluate_and_plot_a_model_with_named_states(fitted, tmp_path, capsys, f
     code, _, err = run(["plot", "--model", str(model), "--data", str(data), "--out", str(tmp_path / "p.png"),
                         "--n-samples", "200", "--quiet"], capsys)
     assert code == 0, err
-    ticks = {t.get_text() for sub in figures[0].subfigs for ax in sub.axes for t in ax.get_yticklabels()}
-    assert {"ALA", "GLY", "PRO"} <= ticks
+    axes = [ax for sub in figures[0].subfigs for ax in sub.axes]
+    assert {"ALA", "GLY", "PRO"} <= {t.get_text() for ax in axes for t in ax.get_yticklabels()}
+    # the state column's position is labelled by the table's column name
+    state_axes = [ax for ax in axes if ax.get_xlabel() == "column"]
+    assert state_axes and all([t.get_text() for t in ax.get_xticklabels()] == ["kind"] for ax in state_axes)
 
 
 def test_a_label_column_and_a_state_column_are_different_columns(tmp_path, capsys):

@@ -197,6 +197,20 @@ def test_sequence_positions_are_ticked_at_whole_numbers_only(length):
         assert shown and all(float(t).is_integer() and 1 <= t <= length for t in shown), shown
 
 
+def test_sequence_positions_take_column_names_and_a_wrong_count_is_refused():
+    from heatwalk.errors import InputError
+    from heatwalk.spaces import Categories
+
+    x = torch.randint(0, 3, (20, 2), generator=torch.Generator().manual_seed(0))
+    fig = plots.plot_sequences(Categories(3, 2), x, x, columns=["site_a", "site_b"])
+    fig.canvas.draw()
+    named = [ax for ax in fig.axes if ax.get_xlabel() == "column"]
+    assert len(named) == 3 and all([t.get_text() for t in ax.get_xticklabels()] == ["site_a", "site_b"]
+                                   for ax in named)
+    with pytest.raises(InputError, match="columns: expected 2 names of the positions, got 3 names"):
+        plots.plot_sequences(Categories(3, 2), x, x, columns=["a", "b", "c"])
+
+
 def test_loss_curve(files, tmp_path, capsys, figures):
     out = tmp_path / "loss.png"
     _plot(["--model", str(files / "torus-model"), "--losses", "--out", str(out), "--size", "640,480"], capsys)

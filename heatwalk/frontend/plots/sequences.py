@@ -10,6 +10,10 @@ Points may be state codes (n, L) on the space, or strings over its alphabet of a
 records are read from FASTA files). A sequence's length is its number of symbols; with
 ``pad_symbol`` (a symbol of the alphabet, e.g. "-"), a trailing run of that symbol is padding and is
 not counted (nor drawn in the frequencies). Without it every code sequence has length L.
+
+``columns`` (L names, one per position; what ``heatwalk plot`` passes for a table's named-state columns,
+e.g. the residue column of a product ``torus:2,categories:1``) labels the positions by name instead of
+by number.
 """
 
 from __future__ import annotations
@@ -18,7 +22,8 @@ import numpy as np
 import torch
 
 from heatwalk.errors import InputError
-from heatwalk.frontend.plots.figures import DATA_COLOUR, SAMPLES_COLOUR, check_model_space, points, render
+from heatwalk.frontend.plots.figures import (DATA_COLOUR, SAMPLES_COLOUR, check_model_space, check_names, points,
+                                             render)
 from heatwalk.spaces.base import Option
 
 FREQUENCY_CMAP, DIFFERENCE_CMAP = "Blues", "RdBu_r"
@@ -71,7 +76,7 @@ def frequencies(codes: np.ndarray, K: int, length: int) -> np.ndarray:
     return np.divide(counts, reach, out=np.full_like(counts, np.nan), where=reach > 0)
 
 
-def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | None = None) -> None:
+def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | None = None, columns=None) -> None:
     """Per-position symbol frequencies of data and samples, their difference, and the lengths (module docstring).
 
     ``model`` is not used: the picture shows point sets (give samples drawn from the model).
@@ -79,6 +84,7 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
     from matplotlib.ticker import MaxNLocator
 
     check_model_space(model, space)
+    names = None if columns is None else check_names(columns, space.L, [], "positions")
     symbols = symbols_of(space)
     pad = None
     if pad_symbol is not None:
@@ -105,8 +111,14 @@ def draw_sequences(fig, space, data, samples, *, model=None, pad_symbol: str | N
         im = ax.imshow(f, aspect="auto", interpolation="nearest", cmap=DIFFERENCE_CMAP if diff else FREQUENCY_CMAP,
                        vmin=-top if diff else 0.0, vmax=top, extent=(0.5, length + 0.5, space.K - 0.5, -0.5))
         ax.set_yticks(range(space.K), symbols if space.K <= 40 else None, fontsize="small")
-        ax.xaxis.set_major_locator(MaxNLocator(integer=True, min_n_ticks=1))
-        ax.set_xlabel("position")
+        if names is None:
+            ax.xaxis.set_major_locator(MaxNLocator(integer=True, min_n_ticks=1))
+            ax.set_xlabel("position")
+        else:
+            shown = range(0, space.L, max(1, -(-space.L // 20)))  # at most 20 labels
+            ax.set_xticks([l + 1 for l in shown], [names[l] for l in shown], rotation=90 if space.L > 4 else 0,
+                          fontsize="small")
+            ax.set_xlabel("column")
         ax.set_ylabel("state" if space.state_names is not None else "symbol")
         n = next(c.shape[0] for s, c in sets if s == name) if not diff else None
         ax.set_title(f"{name} (n={n})" if n is not None else name, fontsize="small")
@@ -139,7 +151,8 @@ def plot_sequences(space, data=None, samples=None, *, model=None, size=None, dpi
                    **options):
     """A Figure of per-position symbol frequencies (data, samples, difference) and lengths (module docstring).
 
-    Options: ``pad_symbol`` (a trailing run of it is padding, not counted in lengths). ``size`` in pixels.
+    Options: ``pad_symbol`` (a trailing run of it is padding, not counted in lengths), ``columns`` (L names of
+    the positions). ``size`` in pixels.
     """
     return render("sequences", draw_sequences, default_size, space, data, samples, model, size, dpi, title,
                   options)
