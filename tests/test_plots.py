@@ -327,8 +327,10 @@ def test_product_one_picture_per_factor(tmp_path, torus):
     assert any(lab.startswith("factor 1: Categories") for lab in labels)
     with pytest.raises(InputError, match="joint"):
         plot(space, pts, factor_options=[{"density": "model"}, {}])
-    with pytest.raises(InputError, match="takes no option 'columns'"):
-        plot(space, pts, factor_options=[{}, {"columns": ["a"] * 5}])
+    with pytest.raises(InputError, match="takes no option 'degrees'"):
+        plot(space, pts, factor_options=[{}, {"degrees": True}])
+    fig = plot(space, pts, factor_options=[{}, {"columns": [f"site{i}" for i in range(5)]}])
+    assert {"column", "site0", "site4"} <= _labels(fig) | {t.get_text() for ax in fig.axes for t in ax.get_xticklabels()}
     with pytest.raises(InputError, match="no picture"):
         plot(Product(_Unpictured(2), Torus(1)), (torch.zeros(3, 2), torch.zeros(3, 1)))
 
