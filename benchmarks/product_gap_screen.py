@@ -17,9 +17,11 @@ point (exact divergence) and saves the per-point log-likelihoods beside this fil
 - ``noskip``: the same network without its time skip;
 - ``jointF``: a fraction F of the rows diffuse every factor (the objective's roles patched in this process
   for the screen; the library's fraction is 1/2);
-- ``additive``: one residual network per factor on that factor's own features (its time skip where its
-  features are unbounded) plus a coupling residual network on all features whose output layer starts at
-  zero, outputs summed (a prototype defined here, not a library network);
+- ``additive``: the factored product network, ``network={"factored": True}``
+  (:class:`heatwalk.core.networks.factored.FactoredDenoiser`: one residual network per factor on that
+  factor's own features, its time skip where its features are unbounded, plus a coupling residual network on
+  all features whose output layer starts at zero, outputs summed; first screened as a prototype defined in
+  this script, the same modules built in the same order);
 - ``independent``: each factor fitted alone at its defaults, the log-likelihoods summed.
 """
 
@@ -32,41 +34,16 @@ from pathlib import Path
 
 import numpy as np
 import torch
-from torch import nn
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import product_defaults as pd  # noqa: E402
 
 import heatwalk  # noqa: E402
-from heatwalk.core import networks, sizing  # noqa: E402
-from heatwalk.core.networks.residual import ResidualDenoiser  # noqa: E402
+from heatwalk.core import sizing  # noqa: E402
 from heatwalk.core.objectives import product as product_objective  # noqa: E402
 
 OUT = Path(__file__).resolve().parent / "results" / "product_gap_screen"
-
-
-class AdditiveProductDenoiser(nn.Module):
-    """Σ_i own_i(features_i) ⊕ coupling(all features): the ``additive`` variant (module docstring)."""
-
-    def __init__(self, in_dims, time_dim, out_dims, hidden, depth, skips):
-        super().__init__()
-        self._config = dict(in_dims=list(in_dims), time_dim=time_dim, out_dims=list(out_dims), hidden=hidden,
-                            depth=depth, skips=list(skips))
-        self.in_dims = list(in_dims)
-        self.own = nn.ModuleList(ResidualDenoiser(i, time_dim, o, hidden, depth, time_skip=s)
-                                 for i, o, s in zip(in_dims, out_dims, skips))
-        self.coupling = ResidualDenoiser(sum(in_dims), time_dim, sum(out_dims), hidden, depth)
-        nn.init.zeros_(self.coupling.outlet.weight)
-        nn.init.zeros_(self.coupling.outlet.bias)
-
-    def config(self) -> dict:
-        return dict(self._config)
-
-    def forward(self, features, c):
-        parts = torch.split(features, self.in_dims, dim=-1)
-        own = torch.cat([net(p, c) for net, p in zip(self.own, parts)], dim=-1)
-        return own + self.coupling(features, c)
 
 
 def patch(variant: str, space, network: dict) -> dict | None:
@@ -86,16 +63,7 @@ def patch(variant: str, space, network: dict) -> dict | None:
     if "noskip" in parts:
         network = {**network, "time_skip": False}
     if "additive" in parts:
-        networks.NETWORKS["additive_screen"] = AdditiveProductDenoiser
-        width = network["hidden"]
-
-        def default_network(self, **options):
-            return AdditiveProductDenoiser([f.embed_dim for f in space.factors], self.condition_dim,
-                                           self.out_sizes, width, sizing.DEPTH,
-                                           [not f.bounded_embedding for f in space.factors])
-
-        product_objective.ProductObjective.default_network = default_network
-        return None
+        network = {**network, "factored": True}
     return network
 
 

@@ -44,11 +44,15 @@ CONFIG_MAX_DEPTH = 32
 MAX_PARAMETERS = 10**9
 #: largest value of each size in a network config; layer counts are kept small, since each layer is an object
 _WIDTH = 2**24
+#: longest list in a network config (one entry per factor of a product)
+MAX_LIST_LENGTH = 64
 NETWORK_LIMITS = {
     "mlp": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
             "fourier_features": _WIDTH, "fourier_scale": None},
     "residual": {"in_dim": _WIDTH, "time_dim": _WIDTH, "out_dim": _WIDTH, "hidden": _WIDTH, "depth": 1000,
                  "fourier_features": _WIDTH, "fourier_scale": None, "time_skip": bool},
+    "factored": {"in_dims": [_WIDTH], "time_dim": _WIDTH, "out_dims": [_WIDTH], "hidden": _WIDTH, "depth": 1000,
+                 "time_skips": [bool]},
     "transformer": {"length": _WIDTH, "n_inputs": _WIDTH, "n_outputs": _WIDTH, "time_dim": _WIDTH,
                     "d_model": _WIDTH, "n_layers": 1000, "n_heads": 4096},
 }
@@ -125,19 +129,31 @@ def _check_network(network: dict, where: Path) -> None:
             raise InputError(f"{where}: unknown key {field!r} for a {name} network (known: {', '.join(limits)})",
                              field=field)
         top = limits.get(key, _WIDTH)
-        if top is bool:
-            if not isinstance(value, bool):
-                raise InputError(f"{where}: key {field!r} must be true or false, got {json.dumps(value)[:60]}",
-                                 field=field)
-            continue
-        if top is None:  # a positive finite real number
-            if not isinstance(value, (int, float)) or isinstance(value, bool) or not 0 < value < float("inf"):
-                raise InputError(f"{where}: key {field!r} must be a positive finite number, got "
+        if isinstance(top, list):  # a list of one kind of value, one per factor
+            if not isinstance(value, list) or not 1 <= len(value) <= MAX_LIST_LENGTH:
+                raise InputError(f"{where}: key {field!r} must be a list of 1 to {MAX_LIST_LENGTH} values, got "
                                  f"{json.dumps(value)[:60]}", field=field)
+            for i, item in enumerate(value):
+                _check_value(item, top[0], f"{field}[{i}]", where)
             continue
-        if not isinstance(value, int) or isinstance(value, bool) or not 1 <= value <= top:
-            raise InputError(f"{where}: key {field!r} must be an integer in [1, {top}], got {json.dumps(value)[:60]}",
+        _check_value(value, top, field, where)
+
+
+def _check_value(value, top, field: str, where: Path) -> None:
+    """One network size: a boolean (``top`` is bool), a positive finite number (None), an integer in [1, top]."""
+    if top is bool:
+        if not isinstance(value, bool):
+            raise InputError(f"{where}: key {field!r} must be true or false, got {json.dumps(value)[:60]}",
                              field=field)
+        return
+    if top is None:  # a positive finite real number
+        if not isinstance(value, (int, float)) or isinstance(value, bool) or not 0 < value < float("inf"):
+            raise InputError(f"{where}: key {field!r} must be a positive finite number, got "
+                             f"{json.dumps(value)[:60]}", field=field)
+        return
+    if not isinstance(value, int) or isinstance(value, bool) or not 1 <= value <= top:
+        raise InputError(f"{where}: key {field!r} must be an integer in [1, {top}], got {json.dumps(value)[:60]}",
+                         field=field)
 
 
 def read_model_config(path) -> dict:

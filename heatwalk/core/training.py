@@ -153,7 +153,9 @@ def fit(space, data, *, steps: int | None = None, batch_size: int = 512, lr: flo
         lowest one (early model choice; the record's "validation" entry has the curve). Needs the points in
         memory or memory-mapped, and no ``checkpoint_dir``.
     network : options of the objective's default network; with ``fourier_features`` but no ``fourier_scale``
-        the scale comes from the data's size and spread (:func:`heatwalk.core.sizing.fourier_scale`).
+        the scale comes from the data's size and spread (:func:`heatwalk.core.sizing.fourier_scale`). A
+        product also takes ``factored`` (a residual network per factor plus a coupling network,
+        :class:`heatwalk.core.networks.factored.FactoredDenoiser`).
 
     Data-parallel runs
     ------------------

@@ -9,11 +9,13 @@ from __future__ import annotations
 from torch import nn
 
 from heatwalk.errors import InputError
+from heatwalk.core.networks.factored import FactoredDenoiser
 from heatwalk.core.networks.mlp import MLPDenoiser
 from heatwalk.core.networks.residual import ResidualDenoiser
 from heatwalk.core.networks.transformer import TransformerDenoiser
 
-NETWORKS: dict[str, type] = {"mlp": MLPDenoiser, "residual": ResidualDenoiser, "transformer": TransformerDenoiser}
+NETWORKS: dict[str, type] = {"mlp": MLPDenoiser, "residual": ResidualDenoiser, "transformer": TransformerDenoiser,
+                             "factored": FactoredDenoiser}
 
 
 def build_network(name: str, config: dict) -> nn.Module:

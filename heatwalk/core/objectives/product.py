@@ -37,6 +37,7 @@ from heatwalk.checks import check_number
 from heatwalk.core.conditioning import Conditioning, combine_guidance
 from heatwalk.core.fields import ProductField
 from heatwalk.core.networks import point_denoiser
+from heatwalk.core.networks.factored import FactoredDenoiser
 from heatwalk.core.objectives.base import Objective
 from heatwalk.core.objectives.discrete_elbo import DiscreteELBO
 from heatwalk.core.objectives.score_matching import ScoreMatching
@@ -108,11 +109,35 @@ class ProductObjective(Objective):
     def condition_dim(self) -> int:
         return super().condition_dim + 2 * len(self.space.factors)
 
-    def default_network(self, **options) -> nn.Module:
+    def default_network(self, factored: bool = False, **options) -> nn.Module:
         """One network for every factor, on their features side by side: the MLP or the residual network, with
-        the options of score matching (:func:`heatwalk.core.networks.point_denoiser`)."""
-        return point_denoiser(self.space.embed_dim, self.condition_dim, sum(self.out_sizes), who="a product",
-                              **options)
+        the options of score matching (:func:`heatwalk.core.networks.point_denoiser`).
+
+        ``factored=True``: the factored network instead (:class:`heatwalk.core.networks.factored.FactoredDenoiser`:
+        a residual network per factor on its own features plus a coupling network on all of them), of the
+        given ``hidden`` and ``depth``; ``time_skip`` then gives the time skip to the manifold factors whose
+        features are unbounded (R^d, the simplex)."""
+        if not isinstance(factored, bool):
+            raise InputError(f"network option 'factored' must be true or false, got {factored!r}", field="network")
+        if not factored:
+            return point_denoiser(self.space.embed_dim, self.condition_dim, sum(self.out_sizes), who="a product",
+                                  **options)
+        accepted = {"hidden", "depth", "time_skip", "residual"}
+        if set(options) - accepted:
+            raise InputError(f"unknown network options for the factored product network: "
+                             f"{sorted(set(options) - accepted)}; accepted: depth, factored, hidden, time_skip",
+                             field="network")
+        if options.get("residual") is False:
+            raise InputError("network option 'factored' builds residual networks; it cannot be combined with "
+                             "'residual': false", field="network")
+        skip = options.get("time_skip", False)
+        if not isinstance(skip, bool):
+            raise InputError(f"network option 'time_skip' must be true or false, got {skip!r}", field="network")
+        skips = [bool(skip and m and not f.bounded_embedding)
+                 for f, m in zip(self.space.factors, self.space.is_manifold)]
+        size = {k: options[k] for k in ("hidden", "depth") if k in options}
+        return FactoredDenoiser([f.embed_dim for f in self.space.factors], self.condition_dim, self.out_sizes,
+                                time_skips=skips, **size)
 
     def _condition(self, tau, labels, roles):
         flags = torch.cat([(roles == KNOWN).double(), (roles == DROPPED).double()], dim=-1)
