@@ -7,7 +7,9 @@ sqrt(t_i) s_i (a tangent vector) of a manifold factor, the x_0 logits of a
 finite factor. Each factor keeps its exact kernel and its loss term at its own
 time t_i(τ) (:class:`heatwalk.spaces.Product`): denoising score matching for
 manifolds (:class:`ScoreMatching`), the continuous-time ELBO for finite spaces
-(:class:`DiscreteELBO`); the loss is their sum.
+(:class:`DiscreteELBO`); the loss is their sum. With ``network={"factored": True}`` that one network
+is the factored one (:mod:`heatwalk.core.networks.factored`): a residual network per factor on its own
+features plus a coupling network on all of them, outputs summed.
 
 Factor roles
 ------------
